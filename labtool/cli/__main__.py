@@ -1,0 +1,5 @@
+import sys
+
+from labtool.cli import main
+
+sys.exit(main())

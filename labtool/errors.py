@@ -1,0 +1,99 @@
+"""The one exception hierarchy of labtool; the CLI maps each class to an exit code."""
+
+from __future__ import annotations
+
+
+class LabtoolError(Exception):
+    """Base of every error labtool reports to a user (one line, no traceback)."""
+
+    exit_code = 2
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def __str__(self) -> str:
+        return self.message
+
+
+class UsageError(LabtoolError):
+    """A command-line value or API argument that makes no sense."""
+
+    exit_code = 2
+
+
+class InputError(LabtoolError):
+    """A file that cannot be read as a capture: names the file, the place and what is wrong."""
+
+    exit_code = 1
+
+    def __init__(self, path: str, what: str, *, line: int | None = None, field: str | None = None):
+        self.path = str(path)
+        self.line = line
+        self.field = field
+        self.what = what
+        where = self.path
+        if line is not None:
+            where += f":{line}"
+        if field is not None:
+            where += f" [{field}]"
+        super().__init__(f"{where}: {what}")
+
+
+class StoreError(LabtoolError):
+    """The campaign store is missing, locked, corrupt or of another schema version."""
+
+    exit_code = 3
+
+
+class MeasurementError(LabtoolError):
+    """A capture lacks what a measurement needs (for example no supply channel)."""
+
+    exit_code = 1
+
+
+class ModelError(LabtoolError):
+    """A design file or model parameter is invalid, or the model could not be solved."""
+
+    exit_code = 5
+
+
+class InstrumentError(LabtoolError):
+    """Anything that went wrong talking to a bench instrument."""
+
+    exit_code = 4
+
+
+class InstrumentTimeout(InstrumentError):
+    """The instrument did not answer within the timeout."""
+
+
+class ConnectionLost(InstrumentError):
+    """The link to the instrument dropped, was reset or refused."""
+
+
+class BlockError(InstrumentError):
+    """An IEEE 488.2 binary block was malformed, truncated or of the wrong length."""
+
+
+class ScpiError(InstrumentError):
+    """An entry of the instrument's SCPI error queue, attached to the command that caused it."""
+
+    def __init__(self, code: int, text: str, command: str | None = None):
+        self.code = code
+        self.text = text
+        self.command = command
+        msg = f'SCPI error {code},"{text}"'
+        if command:
+            msg += f" after {command!r}"
+        super().__init__(msg)
+
+
+class ProfileError(InstrumentError):
+    """A command profile is invalid or lacks an operation a driver needs."""
+
+
+class PlanError(LabtoolError):
+    """An acquisition plan is invalid."""
+
+    exit_code = 2

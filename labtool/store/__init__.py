@@ -1,0 +1,5 @@
+"""The campaign store: a directory with a SQLite catalog and the waveforms as Parquet files."""
+
+from labtool.store.campaign import AddResult, Campaign
+
+__all__ = ["AddResult", "Campaign"]

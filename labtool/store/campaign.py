@@ -1,0 +1,334 @@
+"""Campaign store: SQLite catalog of captures and measurements, waveforms as Parquet files.
+
+Layout of a campaign directory::
+
+    catalog.sqlite              captures, conditions, provenance, measurements
+    waveforms/<lot>/<id>.parquet one file per capture, grouped by lot so workers read what they need
+    tmp/                        files being written; renamed into place when complete
+
+Writes are atomic: a waveform is written to ``tmp/`` and renamed, then its catalog row is inserted in
+one transaction. A file with no catalog row (a crash between the two) is an orphan that ``verify``
+reports and a later ingest of the same input overwrites.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import os
+import re
+import sqlite3
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Iterator, Sequence
+
+import pandas as pd
+
+from labtool.capture import CONDITION_TYPES, Capture, Conditions, Provenance
+from labtool.errors import StoreError
+from labtool.store.waveforms import waveform_from_parquet, waveform_to_parquet
+
+SCHEMA_VERSION = 1
+CATALOG_NAME = "catalog.sqlite"
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS captures (
+    capture_id TEXT PRIMARY KEY,
+    source_path TEXT NOT NULL,
+    locator TEXT NOT NULL,
+    version INTEGER NOT NULL,
+    source_sha256 TEXT NOT NULL,
+    importer TEXT NOT NULL,
+    imported_at TEXT NOT NULL,
+    n_samples INTEGER NOT NULL,
+    t0_s REAL NOT NULL,
+    dt_s REAL,
+    lot TEXT, wafer TEXT, die_x INTEGER, die_y INTEGER, part TEXT,
+    temperature_c REAL, ramp_s REAL, vdd_v REAL, repeat INTEGER,
+    tags_json TEXT NOT NULL,
+    metadata_json TEXT NOT NULL,
+    channels_json TEXT NOT NULL,
+    n_clipped INTEGER NOT NULL,
+    waveform_path TEXT NOT NULL,
+    waveform_sha256 TEXT NOT NULL
+);
+CREATE INDEX IF NOT EXISTS captures_source ON captures (source_path, locator, version);
+CREATE INDEX IF NOT EXISTS captures_lot ON captures (lot, part);
+CREATE TABLE IF NOT EXISTS measurements (
+    capture_id TEXT NOT NULL REFERENCES captures (capture_id),
+    limits_key TEXT NOT NULL,
+    limits_json TEXT NOT NULL,
+    measured_at TEXT NOT NULL,
+    verdict TEXT NOT NULL,
+    result_json TEXT NOT NULL,
+    PRIMARY KEY (capture_id, limits_key)
+);
+CREATE INDEX IF NOT EXISTS measurements_limits ON measurements (limits_key);
+"""
+
+CONDITION_COLUMNS = tuple(CONDITION_TYPES)
+
+
+@dataclass(frozen=True)
+class AddResult:
+    capture_id: str
+    status: str  # "added" or "skipped" (already in the store)
+    version: int
+
+
+def _slug(text: str | None) -> str:
+    """A file-system-safe folder name that can never leave the campaign directory."""
+    if not text:
+        return "_nolot"
+    clean = re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("._") or "_"
+    if clean != text or len(clean) > 48:
+        clean = clean[:40] + "-" + hashlib.sha256(text.encode()).hexdigest()[:6]
+    return clean
+
+
+class Campaign:
+    """One campaign directory. Use :meth:`open` or :meth:`create`; close with :meth:`close` or ``with``."""
+
+    def __init__(self, root: Path, conn: sqlite3.Connection):
+        self.root = root
+        self._conn = conn
+
+    # -- opening --------------------------------------------------------------------------
+    @classmethod
+    def open(cls, path: str | os.PathLike, *, create: bool = False) -> "Campaign":
+        root = Path(path)
+        catalog = root / CATALOG_NAME
+        if not catalog.exists():
+            if not create:
+                raise StoreError(f"{root}: not a campaign (no {CATALOG_NAME}); ingest into it first")
+            if root.exists() and not root.is_dir():
+                raise StoreError(f"{root}: exists and is not a directory")
+            root.mkdir(parents=True, exist_ok=True)
+        try:
+            conn = sqlite3.connect(str(catalog), timeout=60.0, isolation_level=None)
+            conn.execute("PRAGMA busy_timeout = 60000")
+            conn.execute("PRAGMA journal_mode = WAL")
+            conn.execute("PRAGMA synchronous = NORMAL")
+            conn.execute("PRAGMA foreign_keys = ON")
+            with _transaction(conn):
+                for stmt in filter(None, (s.strip() for s in _SCHEMA.split(";"))):
+                    conn.execute(stmt)
+                row = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+                if row is None:
+                    conn.execute("INSERT INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+                elif int(row[0]) != SCHEMA_VERSION:
+                    raise StoreError(f"{root}: schema version {row[0]}, this labtool reads {SCHEMA_VERSION}")
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"{catalog}: cannot open catalog: {exc}") from None
+        (root / "waveforms").mkdir(exist_ok=True)
+        (root / "tmp").mkdir(exist_ok=True)
+        return cls(root, conn)
+
+    def close(self) -> None:
+        self._conn.close()
+
+    def __enter__(self) -> "Campaign":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # -- captures -------------------------------------------------------------------------
+    def add_capture(self, capture: Capture) -> AddResult:
+        """Store one capture atomically; the same capture again is skipped, not duplicated."""
+        cid = capture.capture_id
+        row = self._conn.execute("SELECT version FROM captures WHERE capture_id = ?", (cid,)).fetchone()
+        if row is not None:
+            return AddResult(cid, "skipped", int(row[0]))
+        payload = waveform_to_parquet(capture.time, capture.channels)
+        rel = Path("waveforms") / _slug(capture.conditions.lot) / f"{cid}.parquet"
+        self._write_atomic(rel, payload)
+        prov, cond = capture.provenance, capture.conditions
+        try:
+            with _transaction(self._conn):
+                again = self._conn.execute("SELECT version FROM captures WHERE capture_id = ?", (cid,)).fetchone()
+                if again is not None:  # another process stored it meanwhile
+                    return AddResult(cid, "skipped", int(again[0]))
+                (last,) = self._conn.execute(
+                    "SELECT COALESCE(MAX(version), 0) FROM captures WHERE source_path = ? AND locator = ?",
+                    (prov.source_path, prov.locator)).fetchone()
+                version = int(last) + 1
+                values = (
+                    cid, prov.source_path, prov.locator, version, prov.sha256, prov.importer, prov.imported_at,
+                    capture.time.n, capture.time.t0_s, capture.time.dt_s,
+                    *(getattr(cond, k) for k in CONDITION_COLUMNS),
+                    json.dumps(dict(cond.tags), sort_keys=True), json.dumps(dict(prov.metadata), sort_keys=True),
+                    json.dumps([{"name": c.name, "unit": c.unit, "role": c.role} for c in capture.channels]),
+                    sum(c.n_clipped for c in capture.channels), rel.as_posix(), hashlib.sha256(payload).hexdigest())
+                self._conn.execute(f"INSERT INTO captures VALUES ({','.join('?' * len(values))})", values)
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"{self.root}: cannot record capture {cid}: {exc}") from None
+        return AddResult(cid, "added", version)
+
+    def _write_atomic(self, rel: Path, payload: bytes) -> None:
+        final = self.root / rel
+        final.parent.mkdir(parents=True, exist_ok=True)
+        tmp = self.root / "tmp" / f"{final.name}.{os.getpid()}.{time.monotonic_ns()}.part"
+        with open(tmp, "wb") as fh:
+            fh.write(payload)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, final)
+
+    def has_capture(self, capture_id: str) -> bool:
+        return self._conn.execute("SELECT 1 FROM captures WHERE capture_id = ?", (capture_id,)).fetchone() is not None
+
+    def captures(self, *, current_only: bool = True, capture_ids: Sequence[str] | None = None) -> pd.DataFrame:
+        """The catalog as a DataFrame: one row per capture, conditions and tags as columns.
+
+        ``current_only`` keeps the newest version of each (source path, locator).
+        """
+        sql = "SELECT * FROM captures c"
+        params: list = []
+        where = []
+        if current_only:
+            where.append("version = (SELECT MAX(version) FROM captures d WHERE d.source_path = c.source_path"
+                         " AND d.locator = c.locator)")
+        if capture_ids is not None:
+            where.append(f"capture_id IN ({','.join('?' * len(capture_ids))})")
+            params.extend(capture_ids)
+        if where:
+            sql += " WHERE " + " AND ".join(where)
+        sql += " ORDER BY source_path, locator, version"
+        df = pd.read_sql_query(sql, self._conn, params=params)
+        return _expand_tags(df)
+
+    def load_capture(self, capture_id: str) -> Capture:
+        row = self._conn.execute("SELECT * FROM captures WHERE capture_id = ?", (capture_id,)).fetchone()
+        if row is None:
+            raise StoreError(f"{self.root}: no capture {capture_id}")
+        rec = dict(zip([d[0] for d in self._conn.execute("SELECT * FROM captures LIMIT 0").description], row))
+        return self._capture_from_record(rec)
+
+    def iter_captures(self, capture_ids: Iterable[str] | None = None) -> Iterator[Capture]:
+        """Stream captures one at a time (never all waveforms in memory at once)."""
+        ids = list(capture_ids) if capture_ids is not None else list(self.captures()["capture_id"])
+        for cid in ids:
+            yield self.load_capture(cid)
+
+    def _capture_from_record(self, rec: dict) -> Capture:
+        path = self.root / rec["waveform_path"]
+        try:
+            data = path.read_bytes()
+        except OSError as exc:
+            raise StoreError(f"{path}: waveform missing: {exc.strerror}") from None
+        time_base, channels = waveform_from_parquet(io.BytesIO(data))
+        tags = json.loads(rec["tags_json"])
+        cond = Conditions(**{k: rec[k] for k in CONDITION_COLUMNS}, tags=tags)
+        prov = Provenance(source_path=rec["source_path"], sha256=rec["source_sha256"], importer=rec["importer"],
+                          imported_at=rec["imported_at"], locator=rec["locator"],
+                          metadata=json.loads(rec["metadata_json"]))
+        return Capture(time=time_base, channels=channels, conditions=cond, provenance=prov)
+
+    # -- measurements ---------------------------------------------------------------------
+    def save_measurements(self, rows: Iterable[dict], *, limits_key: str, limits_json: str) -> int:
+        """Replace the results for these limits of the captures in ``rows`` (each has capture_id, verdict)."""
+        now = _now()
+        records = [(r["capture_id"], limits_key, limits_json, now, r["verdict"], json.dumps(r, default=_json_default))
+                   for r in rows]
+        try:
+            with _transaction(self._conn):
+                self._conn.executemany("INSERT OR REPLACE INTO measurements VALUES (?,?,?,?,?,?)", records)
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"{self.root}: cannot save measurements: {exc}") from None
+        return len(records)
+
+    def measurements(self, *, limits_key: str | None = None) -> pd.DataFrame:
+        """Measurement rows joined with the capture's conditions (newest limits when not given)."""
+        if limits_key is None:
+            row = self._conn.execute("SELECT limits_key FROM measurements ORDER BY measured_at DESC LIMIT 1").fetchone()
+            if row is None:
+                return pd.DataFrame()
+            limits_key = row[0]
+        df = pd.read_sql_query(
+            "SELECT m.result_json, m.limits_key, m.measured_at, c.* FROM measurements m "
+            "JOIN captures c USING (capture_id) WHERE m.limits_key = ? ORDER BY c.source_path, c.locator",
+            self._conn, params=(limits_key,))
+        if df.empty:
+            return df
+        results = pd.DataFrame.from_records([json.loads(s) for s in df.pop("result_json")])
+        results = results.drop(columns=[c for c in results.columns if c in df.columns and c != "capture_id"])
+        merged = df.merge(results, on="capture_id", how="left", suffixes=("", "_m"))
+        return _expand_tags(merged)
+
+    def limits_keys(self) -> list[str]:
+        return [r[0] for r in self._conn.execute("SELECT DISTINCT limits_key FROM measurements")]
+
+    # -- integrity ------------------------------------------------------------------------
+    def verify(self) -> list[str]:
+        """Problems found: missing or altered waveforms, orphan files, dangling measurements."""
+        problems: list[str] = []
+        check = self._conn.execute("PRAGMA integrity_check").fetchone()[0]
+        if check != "ok":
+            problems.append(f"catalog integrity: {check}")
+        known = set()
+        for cid, rel, digest in self._conn.execute("SELECT capture_id, waveform_path, waveform_sha256 FROM captures"):
+            known.add(rel)
+            path = self.root / rel
+            if not path.exists():
+                problems.append(f"{cid}: waveform {rel} is missing")
+            elif hashlib.sha256(path.read_bytes()).hexdigest() != digest:
+                problems.append(f"{cid}: waveform {rel} does not match its recorded hash")
+        for path in sorted((self.root / "waveforms").rglob("*.parquet")):
+            rel = path.relative_to(self.root).as_posix()
+            if rel not in known:
+                problems.append(f"orphan waveform {rel} (no catalog row)")
+        for (cid,) in self._conn.execute(
+                "SELECT capture_id FROM measurements WHERE capture_id NOT IN (SELECT capture_id FROM captures)"):
+            problems.append(f"measurement for unknown capture {cid}")
+        return problems
+
+    def summary(self) -> dict:
+        """Counts for ``labtool show``."""
+        df = self.captures()
+        (total,) = self._conn.execute("SELECT COUNT(*) FROM captures").fetchone()
+        (n_meas,) = self._conn.execute("SELECT COUNT(*) FROM measurements").fetchone()
+        return {"captures": len(df), "versions": int(total), "measurements": int(n_meas), "table": df}
+
+
+class _transaction:
+    """BEGIN IMMEDIATE … COMMIT on an autocommit connection; ROLLBACK on any exception."""
+
+    def __init__(self, conn: sqlite3.Connection):
+        self.conn = conn
+
+    def __enter__(self):
+        self.conn.execute("BEGIN IMMEDIATE")
+        return self.conn
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is None:
+            self.conn.execute("COMMIT")
+        else:
+            self.conn.execute("ROLLBACK")
+        return False
+
+
+def _expand_tags(df: pd.DataFrame) -> pd.DataFrame:
+    if df.empty or "tags_json" not in df:
+        return df
+    tags = pd.DataFrame.from_records([json.loads(s) for s in df["tags_json"]], index=df.index)
+    tags = tags[[c for c in tags.columns if c not in df.columns]]
+    return pd.concat([df, tags], axis=1) if not tags.empty else df
+
+
+def _json_default(obj):
+    import numpy as np
+
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    raise TypeError(f"not JSON serialisable: {type(obj).__name__}")
+
+
+def _now() -> str:
+    return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
