@@ -1,0 +1,1 @@
+"""Benchmarks: `make bench` runs every benchmarks/bench_*.py module's main()."""
