@@ -24,6 +24,7 @@ class Scheduler:
     kind: str  # "local" or "dask"
     workers: int = 1
     address: str | None = None
+    connect_timeout_s: float = 10.0
 
     def __str__(self) -> str:
         return self.address if self.kind == "dask" else f"local:{self.workers}"
@@ -96,7 +97,7 @@ def _run_dask(fn, items: list, scheduler: Scheduler, *, what: str, unit: str) ->
     except ImportError:
         raise UsageError("--scheduler tcp://…: Dask is not installed (pip install 'labtool[cluster]')") from None
     try:
-        client = Client(scheduler.address, timeout="10s")
+        client = Client(scheduler.address, timeout=scheduler.connect_timeout_s)
     except (OSError, TimeoutError) as exc:
         raise UsageError(f"--scheduler {scheduler.address}: cannot reach the Dask scheduler ({exc})") from None
     try:
