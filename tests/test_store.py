@@ -99,3 +99,14 @@ def test_lot_names_cannot_steer_writes_outside_the_campaign(tmp_path):
 def test_opening_a_missing_campaign_is_a_clear_error(tmp_path):
     with pytest.raises(StoreError, match="not a campaign"):
         Campaign.open(tmp_path / "nothing")
+
+
+def test_workers_read_waveforms_through_an_fsspec_url(tmp_path):
+    # fsspec's "file://" protocol stands for any shared filesystem URL (fsspec.open).
+    from labtool.store import load_capture_record
+
+    vdd, vref = _ramp()
+    with Campaign.open(tmp_path / "c", create=True) as camp:
+        (rec,) = camp.records([camp.add_capture(make_capture(vdd, vref, 1e-6)).capture_id])
+    back = load_capture_record(f"file://{tmp_path / 'c'}", rec)
+    np.testing.assert_array_equal(back.channel("output").values, vref)

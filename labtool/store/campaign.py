@@ -201,32 +201,32 @@ class Campaign:
         df = pd.read_sql_query(sql, self._conn, params=params)
         return _expand_tags(df)
 
+    def records(self, capture_ids: Sequence[str] | None = None) -> list[dict]:
+        """Catalog rows as plain dicts (current versions unless ids are given), for shipping to workers.
+
+        A worker turns a record into a Capture with :func:`load_capture_record` and needs no catalog.
+        """
+        if capture_ids is None:
+            capture_ids = list(self.captures()["capture_id"])
+        cur = self._conn.execute("SELECT * FROM captures LIMIT 0")
+        names = [d[0] for d in cur.description]
+        out = []
+        for cid in capture_ids:
+            row = self._conn.execute("SELECT * FROM captures WHERE capture_id = ?", (cid,)).fetchone()
+            if row is None:
+                raise StoreError(f"{self.root}: no capture {cid}")
+            out.append(dict(zip(names, row)))
+        return out
+
     def load_capture(self, capture_id: str) -> Capture:
-        row = self._conn.execute("SELECT * FROM captures WHERE capture_id = ?", (capture_id,)).fetchone()
-        if row is None:
-            raise StoreError(f"{self.root}: no capture {capture_id}")
-        rec = dict(zip([d[0] for d in self._conn.execute("SELECT * FROM captures LIMIT 0").description], row))
-        return self._capture_from_record(rec)
+        (rec,) = self.records([capture_id])
+        return load_capture_record(str(self.root), rec)
 
     def iter_captures(self, capture_ids: Iterable[str] | None = None) -> Iterator[Capture]:
         """Stream captures one at a time (never all waveforms in memory at once)."""
         ids = list(capture_ids) if capture_ids is not None else list(self.captures()["capture_id"])
         for cid in ids:
             yield self.load_capture(cid)
-
-    def _capture_from_record(self, rec: dict) -> Capture:
-        path = self.root / rec["waveform_path"]
-        try:
-            data = path.read_bytes()
-        except OSError as exc:
-            raise StoreError(f"{path}: waveform missing: {exc.strerror}") from None
-        time_base, channels = waveform_from_parquet(io.BytesIO(data))
-        tags = json.loads(rec["tags_json"])
-        cond = Conditions(**{k: rec[k] for k in CONDITION_COLUMNS}, tags=tags)
-        prov = Provenance(source_path=rec["source_path"], sha256=rec["source_sha256"], importer=rec["importer"],
-                          imported_at=rec["imported_at"], locator=rec["locator"],
-                          metadata=json.loads(rec["metadata_json"]))
-        return Capture(time=time_base, channels=channels, conditions=cond, provenance=prov)
 
     # -- measurements ---------------------------------------------------------------------
     def save_measurements(self, rows: Iterable[dict], *, limits_key: str, limits_json: str) -> int:
@@ -292,6 +292,30 @@ class Campaign:
         (total,) = self._conn.execute("SELECT COUNT(*) FROM captures").fetchone()
         (n_meas,) = self._conn.execute("SELECT COUNT(*) FROM measurements").fetchone()
         return {"captures": len(df), "versions": int(total), "measurements": int(n_meas), "table": df}
+
+
+def load_capture_record(root: str, rec: dict) -> Capture:
+    """Read one capture given its catalog record; ``root`` is a directory or an fsspec URL.
+
+    Workers on other machines read waveforms from a shared path this way (``file://``, ``s3://`` …).
+    """
+    location = f"{root.rstrip('/')}/{rec['waveform_path']}"
+    try:
+        if "://" in root:
+            import fsspec
+
+            with fsspec.open(location, "rb") as fh:
+                data = fh.read()
+        else:
+            data = Path(location).read_bytes()
+    except (OSError, ValueError) as exc:
+        raise StoreError(f"{location}: waveform missing: {getattr(exc, 'strerror', None) or exc}") from None
+    time_base, channels = waveform_from_parquet(io.BytesIO(data))
+    cond = Conditions(**{k: rec[k] for k in CONDITION_COLUMNS}, tags=json.loads(rec["tags_json"]))
+    prov = Provenance(source_path=rec["source_path"], sha256=rec["source_sha256"], importer=rec["importer"],
+                      imported_at=rec["imported_at"], locator=rec["locator"],
+                      metadata=json.loads(rec["metadata_json"]))
+    return Capture(time=time_base, channels=channels, conditions=cond, provenance=prov)
 
 
 class _transaction:
