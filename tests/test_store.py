@@ -110,3 +110,21 @@ def test_workers_read_waveforms_through_an_fsspec_url(tmp_path):
         (rec,) = camp.records([camp.add_capture(make_capture(vdd, vref, 1e-6)).capture_id])
     back = load_capture_record(f"file://{tmp_path / 'c'}", rec)
     np.testing.assert_array_equal(back.channel("output").values, vref)
+
+
+def test_reopening_removes_what_a_killed_writer_left(tmp_path):
+    # The three states a kill can leave: a partial file, an intent whose row never committed (with its
+    # renamed waveform), and an intent whose row did commit.
+    root = tmp_path / "c"
+    with Campaign.open(root, create=True) as camp:
+        kept = camp.add_capture(make_capture(*_ramp(seed=3), 1e-6, source="kept.csv")).capture_id
+        kept_path = camp.captures().loc[0, "waveform_path"]
+    (root / "tmp" / "x.parquet.123.part").write_bytes(b"partial")
+    (root / "waveforms" / "_nolot" / "deadbeefdeadbeef.parquet").write_bytes(b"uncommitted")
+    (root / "tmp" / "deadbeefdeadbeef.intent").write_text("waveforms/_nolot/deadbeefdeadbeef.parquet")
+    (root / "tmp" / f"{kept}.intent").write_text(kept_path)
+    with Campaign.open(root) as camp:
+        assert camp.verify() == []
+        assert list(camp.captures()["capture_id"]) == [kept]
+    assert list((root / "tmp").iterdir()) == []
+    assert (root / kept_path).exists()

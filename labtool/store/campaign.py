@@ -6,9 +6,9 @@ Layout of a campaign directory::
     waveforms/<lot>/<id>.parquet one file per capture, grouped by lot so workers read what they need
     tmp/                        files being written; renamed into place when complete
 
-Writes are atomic: a waveform is written to ``tmp/`` and renamed, then its catalog row is inserted in
-one transaction. A file with no catalog row (a crash between the two) is an orphan that ``verify``
-reports and a later ingest of the same input overwrites.
+Writes are atomic: under the catalog's write lock a waveform is written to ``tmp/``, renamed into
+place and its row inserted, all in one transaction. A writer killed half-way leaves only files in
+``tmp/``, which the next opening of the campaign cleans up (see ``Campaign._recover``).
 """
 
 from __future__ import annotations
@@ -125,7 +125,9 @@ class Campaign:
             raise StoreError(f"{catalog}: cannot open catalog: {exc}") from None
         (root / "waveforms").mkdir(exist_ok=True)
         (root / "tmp").mkdir(exist_ok=True)
-        return cls(root, conn)
+        campaign = cls(root, conn)
+        campaign._recover()
+        return campaign
 
     def close(self) -> None:
         self._conn.close()
@@ -138,15 +140,20 @@ class Campaign:
 
     # -- captures -------------------------------------------------------------------------
     def add_capture(self, capture: Capture) -> AddResult:
-        """Store one capture atomically; the same capture again is skipped, not duplicated."""
+        """Store one capture atomically; the same capture again is skipped, not duplicated.
+
+        File work happens while this process holds the catalog's write lock, and an intent file in
+        ``tmp/`` names the waveform until the row is committed; so after a kill at any moment,
+        :meth:`_recover` (under the same lock) knows exactly which file to remove.
+        """
         cid = capture.capture_id
         row = self._conn.execute("SELECT version FROM captures WHERE capture_id = ?", (cid,)).fetchone()
         if row is not None:
             return AddResult(cid, "skipped", int(row[0]))
         payload = waveform_to_parquet(capture.time, capture.channels)
         rel = Path("waveforms") / _slug(capture.conditions.lot) / f"{cid}.parquet"
-        self._write_atomic(rel, payload)
         prov, cond = capture.provenance, capture.conditions
+        intent = self.root / "tmp" / f"{cid}.intent"
         try:
             with _transaction(self._conn):
                 again = self._conn.execute("SELECT version FROM captures WHERE capture_id = ?", (cid,)).fetchone()
@@ -164,19 +171,42 @@ class Campaign:
                     json.dumps([{"name": c.name, "unit": c.unit, "role": c.role} for c in capture.channels]),
                     sum(c.n_clipped for c in capture.channels), rel.as_posix(), hashlib.sha256(payload).hexdigest())
                 self._conn.execute(f"INSERT INTO captures VALUES ({','.join('?' * len(values))})", values)
+                intent.write_text(rel.as_posix())
+                self._write_atomic(rel, payload)
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"{self.root}: cannot record capture {cid}: {exc}") from None
+        except OSError as exc:
+            raise StoreError(f"{self.root}: cannot write waveform of {cid}: {exc.strerror}") from None
+        intent.unlink(missing_ok=True)
         return AddResult(cid, "added", version)
 
     def _write_atomic(self, rel: Path, payload: bytes) -> None:
         final = self.root / rel
         final.parent.mkdir(parents=True, exist_ok=True)
-        tmp = self.root / "tmp" / f"{final.name}.{os.getpid()}.{time.monotonic_ns()}.part"
+        tmp = self.root / "tmp" / f"{final.name}.{os.getpid()}.part"
         with open(tmp, "wb") as fh:
             fh.write(payload)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, final)
+
+    def _recover(self) -> None:
+        """Undo what a killed writer left: partial files and waveforms whose row never committed.
+
+        Runs under the write lock, so no live writer can be between its rename and its commit.
+        """
+        tmp = self.root / "tmp"
+        if not any(tmp.iterdir()):
+            return
+        with _transaction(self._conn):
+            for path in tmp.iterdir():
+                if path.suffix == ".intent":
+                    cid = path.stem
+                    target = (self.root / path.read_text().strip()).resolve()
+                    inside = target.is_relative_to((self.root / "waveforms").resolve())
+                    if inside and not self.has_capture(cid):
+                        target.unlink(missing_ok=True)
+                path.unlink(missing_ok=True)
 
     def has_capture(self, capture_id: str) -> bool:
         return self._conn.execute("SELECT 1 FROM captures WHERE capture_id = ?", (capture_id,)).fetchone() is not None
