@@ -1,0 +1,75 @@
+"""Outlier screens for delay samples.
+
+Modified z-score M = 0.6745·(x − median)/MAD, flagged when |M| > 3.5 (B. Iglewicz and D. Hoaglin,
+"How to Detect and Handle Outliers", ASQC 1993; NIST/SEMATECH e-Handbook of Statistical Methods
+§1.3.5.17). Grubbs' statistic G = max|x − mean|/s (e-Handbook §1.3.5.17.1).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.stats import t as student_t
+
+from labtool.errors import UsageError
+
+MODIFIED_Z_LIMIT = 3.5
+# 0.6745 is the 75 % quantile of the standard normal, so MAD/0.6745 estimates sigma for normal data.
+_MAD_FACTOR = 0.6745
+# When more than half the values are equal MAD is zero; the mean absolute deviation scaled by
+# sqrt(pi/2) = 1.2533 (its ratio to sigma for normal data) takes over. Common practice, no source.
+_MEANAD_FACTOR = 1.253314
+
+
+def modified_z_scores(values: np.ndarray) -> np.ndarray:
+    """Modified z-score of each value (NaN where the value is NaN; zeros when all values are equal)."""
+    x = np.asarray(values, dtype=np.float64)
+    finite = x[np.isfinite(x)]
+    out = np.full(x.shape, np.nan)
+    if finite.size == 0:
+        return out
+    med = np.median(finite)
+    mad = np.median(np.abs(finite - med))
+    if mad > 0:
+        scale = mad / _MAD_FACTOR
+    else:
+        mean_ad = np.mean(np.abs(finite - med))
+        if mean_ad == 0:
+            out[np.isfinite(x)] = 0.0
+            return out
+        scale = _MEANAD_FACTOR * mean_ad
+    out[np.isfinite(x)] = (x[np.isfinite(x)] - med) / scale
+    return out
+
+
+def outlier_mask(values: np.ndarray, limit: float = MODIFIED_Z_LIMIT) -> np.ndarray:
+    """True where |modified z| > ``limit``."""
+    return np.abs(np.nan_to_num(modified_z_scores(values), nan=0.0)) > limit
+
+
+@dataclass(frozen=True)
+class GrubbsResult:
+    statistic: float
+    critical: float
+    index: int  # position of the most extreme value
+    outlier: bool
+
+
+def grubbs(values: np.ndarray, alpha: float = 0.05) -> GrubbsResult:
+    """Two-sided Grubbs test for one outlier (e-Handbook §1.3.5.17.1): G against its critical value
+    (n−1)/√n · √(t²/(n−2+t²)), t the upper α/(2n) quantile of Student's t with n−2 degrees of freedom."""
+    x = np.asarray(values, dtype=np.float64)
+    x = x[np.isfinite(x)]
+    n = x.size
+    if n < 3:
+        raise UsageError(f"Grubbs' test needs at least 3 values (got {n})")
+    s = x.std(ddof=1)
+    if s == 0:
+        return GrubbsResult(0.0, float("inf"), 0, False)
+    dev = np.abs(x - x.mean())
+    idx = int(np.argmax(dev))
+    g = float(dev[idx] / s)
+    t = student_t.isf(alpha / (2 * n), n - 2)
+    crit = float((n - 1) / np.sqrt(n) * np.sqrt(t * t / (n - 2 + t * t)))
+    return GrubbsResult(statistic=g, critical=crit, index=idx, outlier=g > crit)

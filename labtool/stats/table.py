@@ -1,0 +1,79 @@
+"""Shared helpers over the measurement table (``Campaign.measurements()``): column checks, grouping,
+part identity, JSON-safe values."""
+
+from __future__ import annotations
+
+import math
+from typing import Iterator, Sequence
+
+import numpy as np
+import pandas as pd
+
+from labtool.errors import UsageError
+
+# Verdict names from the measurement engine (CONTRACTS: labtool/measure/verdict.py VERDICTS).
+STUCK = "stuck_at_zero"
+# The output reached a level (maybe late, ringing or wrong) versus never held one.
+CAME_UP = frozenset({"started", "slow_start", "ringing", "wrong_level"})
+FAILED_TO_HOLD = frozenset({"stuck_at_zero", "recollapse"})
+# Conditions that define one bench set-up of a part; power cycles at one set-up are repeats.
+CELL_KEYS = ("ramp_s", "temperature_c", "vdd_v")
+
+
+def require_columns(df: pd.DataFrame, columns: Sequence[str], what: str) -> None:
+    missing = [c for c in columns if c not in df.columns]
+    if missing:
+        shown = ", ".join(map(str, df.columns)) or "none"
+        raise UsageError(f"{what}: no column {', '.join(missing)} in the measurement table (columns: {shown})")
+
+
+def parse_keys(text: str | Sequence[str] | None, default: Sequence[str] = ("lot",)) -> tuple[str, ...]:
+    """``"lot,temperature_c"`` → ("lot", "temperature_c")."""
+    if text is None:
+        return tuple(default)
+    if isinstance(text, str):
+        keys = tuple(k.strip() for k in text.split(",") if k.strip())
+    else:
+        keys = tuple(text)
+    if not keys:
+        raise UsageError("--by: give at least one column name")
+    return keys
+
+
+def groups(df: pd.DataFrame, by: Sequence[str], what: str) -> Iterator[tuple[dict, pd.DataFrame]]:
+    """Yield ({key: value}, rows) per group, missing values kept as their own group (None)."""
+    require_columns(df, by, what)
+    for values, rows in df.groupby(list(by), dropna=False, sort=True):
+        values = values if isinstance(values, tuple) else (values,)
+        yield {k: plain(v) for k, v in zip(by, values)}, rows
+
+
+def cell_keys(df: pd.DataFrame) -> list[str]:
+    return [k for k in CELL_KEYS if k in df.columns]
+
+
+def part_labels(df: pd.DataFrame) -> pd.Series:
+    """``LOT/PART`` per row (the way the CLI names a part); empty where the part is unknown."""
+    if "part" not in df.columns:
+        return pd.Series("", index=df.index)
+    lot = df["lot"].astype("string").fillna("") if "lot" in df.columns else pd.Series("", index=df.index)
+    part = df["part"].astype("string")
+    return (lot + "/" + part.fillna("")).where(part.notna(), "")
+
+
+def plain(value):
+    """numpy scalars → Python; NaN/NA → None (JSON null)."""
+    if value is None or value is pd.NA:
+        return None
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def delays(rows: pd.DataFrame) -> np.ndarray:
+    if "delay_s" not in rows.columns:
+        return np.empty(0)
+    d = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(dtype=np.float64)
+    return d[np.isfinite(d)]
