@@ -1,0 +1,47 @@
+"""The edge of the statistics package: measurement tables from a campaign, text tables for the CLI."""
+
+from __future__ import annotations
+
+import json
+from typing import Iterable, Sequence
+
+import pandas as pd
+
+from labtool.errors import UsageError
+from labtool.stats.table import plain
+
+
+def load_measurements(campaign_path: str) -> pd.DataFrame:
+    """``Campaign.measurements()`` of a campaign directory (newest limits), refusing an empty table."""
+    from labtool.store import Campaign
+
+    with Campaign.open(campaign_path) as camp:
+        table = camp.measurements()
+    if table.empty:
+        raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
+    return table
+
+
+def json_line(record: dict) -> str:
+    return json.dumps({k: plain(v) if not isinstance(v, (dict, list)) else v for k, v in record.items()},
+                      allow_nan=False)
+
+
+def _cell(value) -> str:
+    value = plain(value)
+    if value is None:
+        return "-"
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    if isinstance(value, (list, tuple)):
+        return ",".join(map(str, value)) or "-"
+    return str(value)
+
+
+def text_table(records: Iterable[dict], columns: Sequence[str]) -> str:
+    """Fixed-width columns, one header line; missing values as ``-``."""
+    rows = [[_cell(r.get(c)) for c in columns] for r in records]
+    widths = [max([len(c), *(len(r[i]) for r in rows)]) for i, c in enumerate(columns)]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip()]
+    lines += ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]
+    return "\n".join(lines)

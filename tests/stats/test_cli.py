@@ -1,0 +1,48 @@
+"""The CLI contracts of issue #5: commands, flags and JSON keys (exact)."""
+
+import json
+
+import pytest
+
+from labtool.cli import main
+from tests.stats.tables import campaign_from_table, measurement_table, set_verdict
+
+LOT_KEYS = {"n", "n_parts", "n_started", "n_stuck", "n_slow", "n_ringing", "n_recollapse", "n_wrong_level",
+            "n_incomplete", "n_no_supply", "stuck_ucl95", "stuck_ppm_ucl95", "delay_median_s", "delay_p05_s",
+            "delay_p95_s", "delay_mean_s", "delay_std_s", "cpk", "outliers", "intermittent_parts"}
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory):
+    df = measurement_table(lots=("ZR24A", "ZR24B"), parts=3, temps=(-40.0, 25.0), repeats=2)
+    df = set_verdict(df, (df["lot"] == "ZR24B") & (df["part"] == "p02") & (df["ramp_s"] == 1e-3), "stuck_at_zero")
+    return campaign_from_table(tmp_path_factory.mktemp("camp") / "c", df)
+
+
+def _json_lines(capsys):
+    return [json.loads(line) for line in capsys.readouterr().out.splitlines() if line.strip()]
+
+
+def test_lot_json_one_object_per_group_with_the_keys(campaign, capsys):
+    assert main(["lot", campaign, "--json", "--spec-max-delay", "20us"]) == 0
+    recs = _json_lines(capsys)
+    assert [r["lot"] for r in recs] == ["ZR24A", "ZR24B"]
+    assert LOT_KEYS <= set(recs[0])
+    assert recs[1]["n"] == 24 and recs[1]["n_stuck"] == 4 and recs[1]["n_parts"] == 3
+    assert recs[0]["cpk"] is not None and recs[0]["n_stuck"] == 0
+
+
+def test_lot_by_two_keys_and_readable_table(campaign, capsys):
+    assert main(["lot", campaign, "--by", "lot,temperature_c", "--json"]) == 0
+    recs = _json_lines(capsys)
+    assert [(r["lot"], r["temperature_c"]) for r in recs] == [
+        ("ZR24A", -40.0), ("ZR24A", 25.0), ("ZR24B", -40.0), ("ZR24B", 25.0)]
+    assert main(["lot", campaign]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[0].split()[:3] == ["lot", "n", "n_parts"] and out[2].split()[:4] == ["ZR24B", "24", "3", "20"]
+
+
+def test_lot_unknown_key_is_one_line_error(campaign, capsys):
+    assert main(["lot", campaign, "--by", "nosuch"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("labtool lot: --by: no column nosuch")
