@@ -46,3 +46,32 @@ def test_lot_unknown_key_is_one_line_error(campaign, capsys):
     assert main(["lot", campaign, "--by", "nosuch"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("labtool lot: --by: no column nosuch")
+
+
+COMPARE_KEYS = {"n_measured", "n_predicted", "measured_delay_median_s", "predicted_delay_median_s",
+                "measured_delay_iqr_s", "predicted_delay_iqr_s", "ks_stat", "ks_pvalue", "ad_stat", "ad_pvalue",
+                "measured_n_stuck", "measured_p_stuck", "predicted_n_stuck", "predicted_p_stuck", "stuck_pvalue",
+                "finding", "finding_text"}
+
+
+def test_compare_with_a_predictions_file(campaign, tmp_path, capsys):
+    pred = tmp_path / "pred.csv"
+    lines = ["ramp_s,temperature_c,delay_s,stuck"]
+    for r in ("1e-5", "1e-3"):
+        for t in ("-40", "25"):
+            lines += [f"{r},{t},{6e-6 * (0.8 + 0.4 * i / 99):.4e},false" for i in range(100)]
+    pred.write_text("\n".join(lines) + "\n")
+    assert main(["compare", campaign, "--predictions", str(pred), "--json"]) == 0
+    recs = _json_lines(capsys)
+    assert [r["lot"] for r in recs] == ["ZR24A", "ZR24B"]
+    assert COMPARE_KEYS <= set(recs[0])
+    assert recs[1]["finding"] == "more_stuck" and recs[1]["measured_n_stuck"] == 4
+    assert main(["compare", campaign, "--predictions", str(pred)]) == 0
+    out = capsys.readouterr().out
+    assert "lot=ZR24B: more stuck than predicted: 4 of 24 measured" in out
+
+
+def test_compare_needs_exactly_one_source(campaign, capsys):
+    with pytest.raises(SystemExit):
+        main(["compare", campaign])
+    capsys.readouterr()
