@@ -75,3 +75,21 @@ def test_compare_needs_exactly_one_source(campaign, capsys):
     with pytest.raises(SystemExit):
         main(["compare", campaign])
     capsys.readouterr()
+
+
+def test_triage_json_and_text(campaign, capsys):
+    assert main(["triage", campaign, "--part", "ZR24B/p02", "--json"]) == 0
+    (rec,) = _json_lines(capsys)
+    assert set(rec) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "hypotheses"}
+    assert rec["part"] == "ZR24B/p02" and rec["n_captures"] == 8
+    assert rec["hypotheses"][0]["name"] == "slow_ramp_miss"
+    assert set(rec["hypotheses"][0]) == {"name", "title", "score", "evidence", "next_experiment"}
+    assert main(["triage", campaign, "--part", "ZR24B/p02"]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith("part ZR24B/p02: 8 captures (started 4, stuck_at_zero 4)")
+    assert "next: Sweep the ramp time" in out
+
+
+def test_triage_unknown_part(campaign, capsys):
+    assert main(["triage", campaign, "--part", "ZR24B/p77"]) == 2
+    assert capsys.readouterr().err.strip() == "labtool triage: --part ZR24B/p77: no measured captures of that part"

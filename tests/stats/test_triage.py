@@ -1,0 +1,90 @@
+"""Triage: each hypothesis from a synthetic part built to show it (invented data, stating the property
+that the pattern built in is the one ranked first)."""
+
+import numpy as np
+import pytest
+
+from labtool.errors import UsageError
+from labtool.stats.triage import HYPOTHESES, triage
+from tests.stats.tables import measurement_table, set_verdict
+
+PART = "p05"
+
+
+def _lot():
+    return measurement_table(parts=10, seed=13)
+
+
+def _build(kind):
+    df = _lot()
+    me = df["part"] == PART
+    if kind == "fixture_supply_invalid":
+        return set_verdict(df, me, "no_supply")
+    if kind == "dead_everywhere":
+        return set_verdict(df, me, "stuck_at_zero")
+    if kind == "slow_ramp_miss":
+        return set_verdict(df, me & (df["ramp_s"] == 1e-3), "stuck_at_zero")
+    if kind == "cold_only_stuck":
+        return set_verdict(df, me & (df["temperature_c"] == -40.0), "stuck_at_zero")
+    if kind == "hot_only_stuck":
+        return set_verdict(df, me & (df["temperature_c"] == 125.0), "stuck_at_zero")
+    if kind == "falls_back":
+        return set_verdict(df, me & (df["ramp_s"] == 1e-3), "recollapse")
+    if kind == "bistable_intermittent":
+        return set_verdict(df, me & (df["repeat"] == 1), "stuck_at_zero")
+    if kind == "weak_startup_slow":
+        df.loc[me, "delay_s"] *= 5.0
+        return df
+    if kind == "excess_ringing":
+        df.loc[me, "overshoot_pct"] = 25.0
+        return df
+    if kind == "level_fault":
+        df.loc[me, "vout_final_v"] = 1.13
+        return df
+    raise AssertionError(kind)
+
+
+KINDS = ["fixture_supply_invalid", "dead_everywhere", "slow_ramp_miss", "cold_only_stuck", "hot_only_stuck",
+         "falls_back", "bistable_intermittent", "weak_startup_slow", "excess_ringing", "level_fault"]
+
+
+def test_every_hypothesis_has_a_builder():
+    assert len(HYPOTHESES) == len(KINDS)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_the_built_pattern_ranks_first(kind):
+    rep = triage(_build(kind), f"ZR24A/{PART}")
+    top, second = rep.hypotheses[0], rep.hypotheses[1] if len(rep.hypotheses) > 1 else None
+    assert top.name == kind, [(h.name, round(h.score, 2)) for h in rep.hypotheses]
+    assert top.score >= 0.6
+    assert second is None or second.score < top.score
+    assert top.next_experiment and top.evidence
+    assert rep.part == "ZR24A/p05" and rep.n_captures == 18 and rep.n_baseline == 162
+
+
+def test_a_good_part_scores_low_everywhere():
+    rep = triage(_lot(), "ZR24A/p02")
+    assert max(h.score for h in rep.hypotheses) < 0.5
+
+
+def test_evidence_numbers_for_slow_ramps_and_slow_start():
+    rep = triage(_build("slow_ramp_miss"), "ZR24A/p05")
+    h = {h.name: h for h in rep.hypotheses}
+    assert h["slow_ramp_miss"].evidence["stuck_fraction_by_ramp_s"] == {"1e-05": 0.0, "0.001": 1.0}
+    assert rep.verdicts == {"started": 9, "stuck_at_zero": 9}
+    slow = {h.name: h for h in triage(_build("weak_startup_slow"), "ZR24A/p05").hypotheses}["weak_startup_slow"]
+    assert slow.evidence["modified_z_vs_lot"] > 10
+    assert slow.evidence["part_delay_s"] == pytest.approx(5 * slow.evidence["lot_delay_s"], rel=0.3)
+
+
+def test_part_naming_errors():
+    df = measurement_table(lots=("ZR24A", "ZR24B"))
+    with pytest.raises(UsageError, match="--part p03: in lots ZR24A, ZR24B; give LOT/PART"):
+        triage(df, "p03")
+    with pytest.raises(UsageError, match="--part ZR24A/p99: no measured captures of that part"):
+        triage(df, "ZR24A/p99")
+    assert triage(df, "p03", lot="ZR24B").part == "ZR24B/p03"
+    json = triage(df, "ZR24B/p03").to_json_dict()
+    assert set(json) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "hypotheses"}
+    assert set(json["hypotheses"][0]) == {"name", "title", "score", "evidence", "next_experiment"}
