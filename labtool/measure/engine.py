@@ -1,0 +1,104 @@
+"""One record in, one :class:`StartupResult` out: metrics, step-model fit, verdict."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from labtool.capture import Capture
+from labtool.errors import MeasurementError
+from labtool.measure.fit import StepFit, fit_step
+from labtool.measure.limits import Limits
+from labtool.measure.startup import StartupMetrics, measure_startup
+from labtool.measure.verdict import decide
+
+MIN_SAMPLES = 32
+
+# The result fields written to JSON and the store, in this order (issue #3 CLI contract).
+RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz", "damping",
+                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v")
+
+
+@dataclass(frozen=True)
+class StartupResult:
+    """Startup measurement of one capture. Instants are on the capture's time axis; None: does not apply."""
+
+    verdict: str
+    t_supply_s: float | None
+    delay_s: float | None
+    rise_s: float | None
+    settle_s: float | None
+    overshoot_pct: float | None
+    ring_hz: float | None
+    damping: float | None
+    vout_final_v: float | None
+    vsupply_final_v: float | None
+    ramp_v_per_s: float | None
+    supply_at_start_v: float | None
+    evidence: dict = field(default_factory=dict, compare=False)
+    fit: StepFit | None = field(default=None, compare=False)
+
+    def to_json_dict(self) -> dict:
+        """The result fields by name (None → null in JSON), then ``evidence`` and ``fit``."""
+        out = {name: _plain(getattr(self, name)) for name in RESULT_FIELDS}
+        out["evidence"] = {k: _plain(v) for k, v in self.evidence.items()}
+        out["fit"] = self.fit.to_json_dict() if self.fit is not None else None
+        return out
+
+
+def _plain(value):
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    return value
+
+
+def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    t = np.asarray(t_s, dtype=np.float64)
+    s = np.asarray(supply_v, dtype=np.float64)
+    o = np.asarray(output_v, dtype=np.float64)
+    if not (t.ndim == s.ndim == o.ndim == 1) or not (t.size == s.size == o.size):
+        raise MeasurementError(f"time, supply and output must be 1-D of one length (got {t.size}, {s.size}, {o.size})")
+    finite = np.isfinite(s) & np.isfinite(o) & np.isfinite(t)
+    if not finite.all():  # clipped or not-a-number samples carry no level information
+        t, s, o = t[finite], s[finite], o[finite]
+    if t.size < MIN_SAMPLES:
+        raise MeasurementError(f"only {t.size} usable samples; a startup measurement needs at least {MIN_SAMPLES}")
+    if not (np.diff(t) > 0).all():
+        raise MeasurementError("sample times do not increase")
+    return t, s, o
+
+
+def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits()) -> StartupResult:
+    """Measure one startup from numpy arrays (s, V, V). Pure: no files, no store."""
+    t, s, o = _checked(t_s, supply_v, output_v)
+    m = measure_startup(t, s, o, limits)
+    fit = _fit(t, o, m)
+    verdict, evidence = decide(m, limits)
+    return StartupResult(
+        verdict=verdict, t_supply_s=m.t_supply_s, delay_s=m.delay_s, rise_s=m.rise_s, settle_s=m.settle_s,
+        overshoot_pct=m.overshoot_pct, ring_hz=fit.ring_hz if fit else None, damping=fit.damping if fit else None,
+        vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v, ramp_v_per_s=m.ramp_v_per_s,
+        supply_at_start_v=m.supply_at_start_v, evidence=evidence, fit=fit)
+
+
+def _fit(t: np.ndarray, o: np.ndarray, m: StartupMetrics) -> StepFit | None:
+    if m.window is None or m.rise_s is None or m.t10_at_s is None:
+        return None
+    return fit_step(t, o, m.window, t10_s=m.t10_at_s, rise_s=m.rise_s, base_v=m.output.initial_v,
+                    final_v=m.output.final_v, overshoot_pct=m.overshoot_pct)
+
+
+def measure_capture(capture: Capture, limits: Limits = Limits()) -> StartupResult:
+    """Measure a capture's supply and output channels (errors name the capture's source)."""
+    supply = capture.channel("supply").values
+    output = capture.channel("output").values
+    try:
+        return measure_arrays(capture.times(), supply, output, limits)
+    except MeasurementError as exc:
+        where = capture.provenance.source_path + (f" [{capture.provenance.locator}]" if capture.provenance.locator else "")
+        raise MeasurementError(f"{where}: {exc}") from None
+
