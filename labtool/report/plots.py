@@ -1,0 +1,563 @@
+"""Report figures, drawn headless (matplotlib's Agg canvas; pyplot and its global state are never used).
+
+Every function takes plain tables or traces and returns a :class:`Plot`: the Figure and the numbers
+it drew, so a caller (or a test) can check the content, not only that a picture exists.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import textwrap
+from dataclasses import dataclass, field
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import BoundaryNorm, ListedColormap
+from matplotlib.figure import Figure
+from matplotlib.patches import Circle, Patch, Rectangle
+from matplotlib import rc_context
+from matplotlib.lines import Line2D
+
+from labtool.report import style
+from labtool.units import format_si
+from labtool.report.traces import Envelope, Trace, envelope
+
+_TIME_SCALES = ((1e-9, "ns"), (1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
+
+
+@dataclass(frozen=True)
+class Plot:
+    """A drawn figure, the file stem it is saved under, and the data it shows."""
+
+    name: str
+    figure: Figure = field(repr=False)
+    data: Mapping[str, Any] = field(default_factory=dict, repr=False)
+
+    def png(self) -> bytes:
+        buf = io.BytesIO()
+        self.figure.savefig(buf, format="png", dpi=style.DPI, bbox_inches="tight", pad_inches=0.12)
+        return buf.getvalue()
+
+
+def time_scale(values_s) -> tuple[float, str]:
+    """The SI time unit that keeps the typical |value| between 1 and 1000: (factor in s, unit name)."""
+    arr = np.abs(np.asarray([v for v in np.ravel(values_s) if v is not None], dtype=float))
+    arr = arr[np.isfinite(arr) & (arr > 0)]
+    if arr.size == 0:
+        return 1e-6, "µs"
+    typical = float(np.median(arr))
+    chosen = _TIME_SCALES[0]
+    for factor, unit in _TIME_SCALES:
+        if typical >= factor:
+            chosen = (factor, unit)
+    return chosen
+
+
+def _figure(size=style.FIGSIZE_WIDE, **kwargs) -> Figure:
+    with rc_context(style.RC):
+        fig = Figure(figsize=size, dpi=style.DPI, layout="constrained", **kwargs)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _finite_values(series) -> np.ndarray:
+    arr = pd.to_numeric(pd.Series(series, dtype=object), errors="coerce").to_numpy(dtype=float)
+    return arr[np.isfinite(arr)]
+
+
+def _verdict_counts(verdicts) -> dict[str, int]:
+    counts = pd.Series(list(verdicts), dtype=object).value_counts()
+    keys = list(style.VERDICT_STYLES) + sorted(set(counts.index) - set(style.VERDICT_STYLES))
+    return {k: int(counts.get(k, 0)) for k in keys}
+
+
+# ---------------------------------------------------------------------------------------------
+def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float | None = None,
+                    predicted_delays_s=None, bins: int | Sequence[float] | None = None) -> Plot:
+    """Histogram of the group's startup delays, the spec limit, the model's predicted distribution
+    (scaled to the same number of captures) and the count of every verdict beside it.
+
+    ``bins``: a count or explicit edges in seconds; by default numpy's "auto" rule, 6 to 40 bins.
+    """
+    with rc_context(style.RC):
+        measured = _finite_values(table.get("delay_s", []))
+        predicted = _finite_values([] if predicted_delays_s is None else predicted_delays_s)
+        pooled = np.concatenate([measured, predicted, [] if spec_max_delay_s is None else [spec_max_delay_s]])
+        if np.ndim(bins) == 1:
+            edges = np.asarray(bins, dtype=float)
+        elif pooled.size:
+            n_bins = bins or int(np.clip(len(np.histogram_bin_edges(measured if measured.size else pooled,
+                                                                    bins="auto")) - 1, 6, 40))
+            lo, hi = float(pooled.min()), float(pooled.max())
+            edges = np.linspace(lo, hi if hi > lo else lo + 1e-9, n_bins + 1)
+        else:
+            edges = np.linspace(0.0, 1e-6, 7)
+        counts, _ = np.histogram(measured, edges)
+        predicted_counts = None
+        if predicted.size:
+            predicted_counts = np.histogram(predicted, edges)[0] / predicted.size * max(measured.size, 1)
+        factor, unit = time_scale(np.concatenate([measured, predicted]) if pooled.size else [])
+
+        fig = _figure()
+        grid = fig.add_gridspec(1, 2, width_ratios=(3.2, 1.25))
+        ax = fig.add_subplot(grid[0, 0])
+        side = fig.add_subplot(grid[0, 1])
+        ax.bar(edges[:-1] / factor, counts, width=np.diff(edges) / factor, align="edge",
+               color=style.INKS.bars, edgecolor=style.INKS.ink, linewidth=0.6, label="measured", gid="measured")
+        if predicted_counts is not None:
+            ax.stairs(predicted_counts, edges / factor, color=style.INKS.ink, linewidth=2.0, linestyle="--",
+                      label=f"model ({predicted.size} samples, scaled)", gid="predicted")
+        if spec_max_delay_s is not None:
+            ax.axvline(spec_max_delay_s / factor, color=style.INKS.accent, linestyle="-.", linewidth=1.6,
+                       gid="spec", label=f"spec max {spec_max_delay_s / factor:.4g} {unit}")
+        ax.set_xlabel(f"startup delay from supply valid [{unit}]")
+        ax.set_ylabel("captures")
+        ax.set_title(title)
+        if measured.size:
+            p05, p50, p95 = np.percentile(measured, [5, 50, 95])
+            ax.text(0.99, 0.97, f"n = {measured.size} with a delay\nmedian {p50 / factor:.3g} {unit}\n"
+                                f"p05–p95 {p05 / factor:.3g}–{p95 / factor:.3g} {unit}",
+                    transform=ax.transAxes, ha="right", va="top", fontsize=8, color=style.INKS.slate)
+        else:
+            ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
+                    color=style.INKS.slate)
+        ax.legend(loc="upper left")
+
+        verdict_counts = _verdict_counts(table.get("verdict", []))
+        _verdict_bars(side, verdict_counts)
+        fig.suptitle("")
+    return Plot("delay_histogram", fig, {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts,
+                                         "verdict_counts": verdict_counts, "spec_max_delay_s": spec_max_delay_s,
+                                         "time_unit": unit})
+
+
+def _verdict_bars(ax, counts: Mapping[str, int]) -> None:
+    """Horizontal bars, one per failure verdict (colour, hatch and the label with its count), on
+    their own scale so a few failures stay visible next to hundreds of starts."""
+    names = [v for v in counts if v != "started"]
+    total = sum(counts.values())
+    y = np.arange(len(names))[::-1]
+    for yi, name in zip(y, names):
+        vs = style.verdict_style(name)
+        ax.barh(yi, counts[name], height=0.45, color=vs.colour, hatch=vs.hatch, edgecolor=vs.edge,
+                linewidth=0.6, gid=name)
+        ax.text(0, yi + 0.27, f"{vs.label}  {counts[name]}", va="bottom", ha="left", fontsize=7.5,
+                color=style.INKS.ink if counts[name] else style.INKS.rule)
+    ax.set_yticks([])
+    ax.set_ylim(-0.4, len(names) - 0.1)
+    ax.set_xlim(0, max(1, max((counts[n] for n in names), default=1)) * 1.15)
+    ax.xaxis.get_major_locator().set_params(integer=True)
+    ax.set_xlabel("captures")
+    ax.set_title(f"failures · {counts.get('started', 0)} of {total} started", fontsize=9)
+    ax.grid(axis="y", visible=False)
+    ax.spines["left"].set_visible(False)
+
+
+# ---------------------------------------------------------------------------------------------
+def waveform_overlay(traces: Sequence[Trace], *, title: str, note: str = "") -> Plot:
+    """All traces faint, the median envelope bold over its p05–p95 band, and markers at supply
+    valid, the 90 % crossing and settling. Supply on the upper panel, reference output below."""
+    with rc_context(style.RC):
+        env = envelope(traces)
+        times = np.concatenate([tr.t_s for tr in traces]) if traces else np.array([])
+        span = (float(times.min()), float(times.max())) if times.size else (0.0, 1e-6)
+        factor, unit = time_scale([max(abs(span[0]), abs(span[1]))])
+        fig = _figure(style.FIGSIZE_TALL)
+        grid = fig.add_gridspec(2, 1, height_ratios=(1.0, 2.4))
+        ax_s = fig.add_subplot(grid[0])
+        ax_o = fig.add_subplot(grid[1], sharex=ax_s)
+        faint = dict(color=style.INKS.slate, alpha=0.28 if len(traces) < 50 else 0.14, linewidth=0.7)
+        for tr in traces:
+            if tr.supply_v is not None:
+                ax_s.plot(tr.t_s / factor, tr.supply_v, gid="supply_trace", **faint)
+            ax_o.plot(tr.t_s / factor, tr.output_v, gid="trace", **faint)
+        if env is not None:
+            _draw_envelope(ax_o, env, factor)
+        _draw_events(ax_s, ax_o, traces, factor)
+        ax_s.set_ylabel("supply [V]")
+        ax_o.set_ylabel("reference output [V]")
+        ax_o.set_xlabel(f"time from supply valid [{unit}]")
+        ax_s.set_title(title)
+        ax_s.tick_params(labelbottom=False)
+        if note:
+            ax_s.text(1.0, 1.02, note, transform=ax_s.transAxes, ha="right", va="bottom", fontsize=8,
+                      color=style.INKS.slate)
+        _event_legend(ax_o, [tr.verdict for tr in traces if "cross90" in tr.events()])
+    return Plot("waveform_overlay", fig, {"n_traces": len(traces), "envelope": env, "time_unit": unit})
+
+
+def _draw_envelope(ax, env: Envelope, factor: float, label: str = "median") -> None:
+    t = env.t_s / factor
+    ax.fill_between(t, env.low_v, env.high_v, color=style.INKS.band, alpha=0.7, linewidth=0,
+                    label="p05–p95", gid="band")
+    ax.plot(t, env.median_v, color=style.INKS.ink, linewidth=2.4, label=f"{label} (n = {env.n})", gid="median")
+
+
+def _draw_events(ax_s, ax_o, traces: Sequence[Trace], factor: float) -> None:
+    points: dict[str, list[tuple[float, float, str]]] = {k: [] for k in style.EVENT_MARKERS}
+    for tr in traces:
+        for name, (t, v) in tr.events().items():
+            points[name].append((t / factor, v, tr.verdict))
+    for name, pts in points.items():
+        if not pts:
+            continue
+        marker, _ = style.EVENT_MARKERS[name]
+        x, y, verdicts = zip(*pts)
+        ax = ax_s if name == "t_supply" else ax_o
+        face = [style.verdict_style(v).colour for v in verdicts] if name == "cross90" else "white"
+        ax.scatter(x, y, marker=marker, s=22, c=face, edgecolors=style.INKS.ink, linewidths=0.6, zorder=4,
+                   gid=name)
+
+
+def _event_legend(ax, verdicts) -> None:
+    handles = [Line2D([], [], color=style.INKS.ink, linewidth=2.4, label="median"),
+               Patch(color=style.INKS.band, label="p05–p95")]
+    for name, (marker, label) in style.EVENT_MARKERS.items():
+        handles.append(Line2D([], [], linestyle="", marker=marker, markerfacecolor="white",
+                              markeredgecolor=style.INKS.ink, label=label))
+    for v in style.verdict_order(verdicts):
+        vs = style.verdict_style(v)
+        handles.append(Line2D([], [], linestyle="", marker="o", markerfacecolor=vs.colour,
+                              markeredgecolor=style.INKS.ink, label=f"crossing: {vs.label}"))
+    ax.legend(handles=handles, loc="lower right", ncols=2, fontsize=7)
+
+
+# ---------------------------------------------------------------------------------------------
+GROUP_STYLES = (("#1F2A36", "o"), ("#2E5E7E", "s"), ("#8C6D46", "^"), ("#5E7F4E", "D"), ("#7B5C8E", "v"),
+                ("#9A4E3A", "P"))
+
+
+def condition_spread(table: pd.DataFrame, condition: str, group_col: str | None = None) -> pd.DataFrame:
+    """Per (group, condition value): n with a delay, median, p05 and p95 of delay_s, and stuck count."""
+    cols = [c for c in (group_col, condition) if c]
+    rows = []
+    for key, sub in table.dropna(subset=[condition]).groupby(cols, sort=True, dropna=False):
+        key = key if isinstance(key, tuple) else (key,)
+        d = _finite_values(sub["delay_s"])
+        p05, p50, p95 = np.percentile(d, [5, 50, 95]) if d.size else (np.nan,) * 3
+        rows.append({**dict(zip(cols, key)), "n": int(d.size), "delay_median_s": p50, "delay_p05_s": p05,
+                     "delay_p95_s": p95, "n_stuck": int((sub["verdict"] == "stuck_at_zero").sum())})
+    return pd.DataFrame(rows, columns=[*cols, "n", "delay_median_s", "delay_p05_s", "delay_p95_s", "n_stuck"])
+
+
+def delay_vs_conditions(table: pd.DataFrame, *, title: str, group_col: str | None = "lot",
+                        predicted: pd.DataFrame | None = None) -> Plot:
+    """Startup delay against supply ramp time (log axis) and temperature: every capture as a small
+    point, per-condition median with its p05–p95 bar, the model's median when given."""
+    with rc_context(style.RC):
+        group_col = group_col if group_col in table.columns else None
+        factor, unit = time_scale(_finite_values(table.get("delay_s", [])))
+        fig = _figure()
+        axes = fig.subplots(1, 2, sharey=True)
+        spreads = {}
+        for ax, condition, label in ((axes[0], "ramp_s", "supply ramp time [s]"),
+                                     (axes[1], "temperature_c", "temperature [°C]")):
+            has = condition in table.columns and table[condition].notna().any()
+            if not has:
+                ax.text(0.5, 0.5, f"no {condition} recorded", transform=ax.transAxes, ha="center")
+                spreads[condition] = condition_spread(table.iloc[0:0].assign(**{condition: []}), condition)
+                continue
+            spread = condition_spread(table, condition, group_col)
+            spreads[condition] = spread
+            _draw_condition_panel(ax, table, spread, condition, group_col, factor, log=condition == "ramp_s")
+            if predicted is not None and condition in predicted.columns and len(predicted):
+                model = condition_spread(predicted.assign(verdict=predicted.get("verdict", "started")), condition)
+                ax.plot(model[condition], model["delay_median_s"] / factor, color=style.INKS.ink, linestyle="--",
+                        marker="x", linewidth=1.2, label="model median", gid="model")
+            ax.set_xlabel(label)
+        axes[0].set_ylabel(f"startup delay [{unit}]")
+        fig.suptitle(title, x=0.01, ha="left", fontsize=11)
+        handles, labels = axes[0].get_legend_handles_labels()
+        if handles:
+            fig.legend(handles, labels, loc="outside lower center", ncols=min(len(handles), 4))
+    return Plot("delay_vs_conditions", fig, {"ramp_s": spreads["ramp_s"], "temperature_c": spreads["temperature_c"],
+                                             "time_unit": unit})
+
+
+def _draw_condition_panel(ax, table, spread, condition, group_col, factor, *, log: bool) -> None:
+    groups = list(dict.fromkeys(spread[group_col])) if group_col else [None]
+    values = np.sort(spread[condition].unique())
+    # Groups side by side around each condition value: multiplicative offsets on a log axis.
+    step = 0.14 if log else 0.9 * (np.min(np.diff(values)) if values.size > 1 else 10.0) / max(len(groups), 1) / 2
+    rng = np.random.default_rng(0)  # fixed jitter: the same table always draws the same picture
+    for gi, g in enumerate(groups):
+        colour, marker = GROUP_STYLES[gi % len(GROUP_STYLES)]
+        offset = (gi - (len(groups) - 1) / 2) * step
+        sub = table if g is None else table[table[group_col] == g]
+        x = pd.to_numeric(sub[condition], errors="coerce").to_numpy(float)
+        y = pd.to_numeric(sub["delay_s"], errors="coerce").to_numpy(float) / factor
+        jitter = rng.uniform(-0.35, 0.35, x.size) * step
+        xs = x * 10 ** (offset + jitter) if log else x + offset + jitter
+        ax.scatter(xs, y, s=8, color=colour, alpha=0.35, marker=marker, linewidths=0, gid="capture")
+        gs = spread if g is None else spread[spread[group_col] == g]
+        cx = gs[condition].to_numpy(float)
+        cx = cx * 10 ** offset if log else cx + offset
+        med = gs["delay_median_s"].to_numpy(float) / factor
+        err = np.vstack([med - gs["delay_p05_s"].to_numpy(float) / factor,
+                         gs["delay_p95_s"].to_numpy(float) / factor - med])
+        ax.errorbar(cx, med, yerr=err, fmt=marker, color=colour, markersize=6, markeredgecolor="white",
+                    capsize=3, linewidth=1.4, label=f"{g}: median, p05–p95" if g is not None else "median, p05–p95",
+                    gid="median")
+        stuck = style.VERDICT_STYLES["stuck_at_zero"]
+        for xi, n_stuck in zip(cx, gs["n_stuck"]):
+            if n_stuck:  # stuck captures have no delay: counted along the top edge instead
+                ax.annotate(f"{n_stuck} stuck", (xi, 1.0 - 0.045 * gi),
+                            xycoords=("data", "axes fraction"), ha="center", va="top", fontsize=7,
+                            color=stuck.colour, gid="stuck_count")
+    if log:
+        ax.set_xscale("log")
+
+
+# ---------------------------------------------------------------------------------------------
+def die_table(table: pd.DataFrame) -> pd.DataFrame:
+    """One row per (wafer, die_x, die_y): captures, median delay and the most severe verdict."""
+    rank = {v: i for i, v in enumerate(style.VERDICT_STYLES)}
+    located = table.dropna(subset=["die_x", "die_y"]).copy()
+    if "wafer" not in located.columns:
+        located["wafer"] = None
+    located["wafer"] = located["wafer"].fillna("—")
+    rows = []
+    for (wafer, x, y), sub in located.groupby(["wafer", "die_x", "die_y"], sort=True):
+        d = _finite_values(sub["delay_s"])
+        worst = min(sub["verdict"], key=lambda v: rank.get(v, len(rank)))
+        rows.append({"wafer": wafer, "die_x": int(x), "die_y": int(y), "n": len(sub),
+                     "delay_median_s": float(np.median(d)) if d.size else np.nan, "verdict": worst})
+    return pd.DataFrame(rows, columns=["wafer", "die_x", "die_y", "n", "delay_median_s", "verdict"])
+
+
+def wafer_map(table: pd.DataFrame, *, title: str, max_wafers: int = 6) -> Plot:
+    """Per wafer, two maps by die position: median startup delay, and the most severe verdict
+    (colour, a marker and the legend's text, so it reads without colour too)."""
+    with rc_context(style.RC):
+        dies = die_table(table)
+        wafers = list(dict.fromkeys(dies["wafer"]))[:max_wafers]
+        factor, unit = time_scale(dies["delay_median_s"])
+        fig = _figure((9.0, 3.9 * max(1, len(wafers))))
+        if not wafers:
+            ax = fig.add_subplot()
+            ax.text(0.5, 0.5, "no die positions recorded", transform=ax.transAxes, ha="center")
+            ax.set_axis_off()
+            return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit})
+        fig.get_layout_engine().set(wspace=0.12)
+        axes = np.atleast_2d(fig.subplots(len(wafers), 2))
+        delays = dies["delay_median_s"].to_numpy(float) / factor
+        finite = delays[np.isfinite(delays)]
+        vmin, vmax = (finite.min(), finite.max()) if finite.size else (0.0, 1.0)
+        codes = list(style.VERDICT_STYLES)
+        verdict_cmap = ListedColormap([style.VERDICT_STYLES[v].colour for v in codes])
+        verdict_norm = BoundaryNorm(np.arange(len(codes) + 1) - 0.5, len(codes))
+        mesh = None
+        for row, wafer in zip(axes, wafers):
+            wd = dies[dies["wafer"] == wafer]
+            x0, y0 = wd["die_x"].min(), wd["die_y"].min()
+            shape = (wd["die_y"].max() - y0 + 1, wd["die_x"].max() - x0 + 1)
+            xe = np.arange(x0, x0 + shape[1] + 1) - 0.5
+            ye = np.arange(y0, y0 + shape[0] + 1) - 0.5
+            delay_grid = np.full(shape, np.nan)
+            verdict_grid = np.full(shape, np.nan)
+            for r in wd.itertuples():
+                delay_grid[r.die_y - y0, r.die_x - x0] = r.delay_median_s / factor
+                verdict_grid[r.die_y - y0, r.die_x - x0] = codes.index(r.verdict) if r.verdict in codes else np.nan
+            mesh = row[0].pcolormesh(xe, ye, np.ma.masked_invalid(delay_grid), cmap=style.SEQUENTIAL_MAP,
+                                     vmin=vmin, vmax=vmax if vmax > vmin else vmin + 1e-12, edgecolors="white",
+                                     linewidth=0.8, gid="delay_map")
+            row[1].pcolormesh(xe, ye, np.ma.masked_invalid(verdict_grid), cmap=verdict_cmap, norm=verdict_norm,
+                              edgecolors="white", linewidth=0.8, alpha=0.55, gid="verdict_map")
+            for v in style.verdict_order(wd["verdict"]):
+                vd = wd[wd["verdict"] == v]
+                vs = style.verdict_style(v)
+                row[1].scatter(vd["die_x"], vd["die_y"], marker=vs.marker, s=38, color=vs.colour,
+                               edgecolors=style.INKS.ink, linewidths=0.6, label=vs.label, gid=f"verdict:{v}")
+            for ax, what in ((row[0], "median delay"), (row[1], "most severe verdict")):
+                _wafer_frame(ax, xe, ye)
+                ax.set_title(f"{title} · wafer {wafer} · {what}", fontsize=9.5)
+            row[1].legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7.5)
+            fig.colorbar(mesh, ax=row[0], label=f"median delay [{unit}]", shrink=0.75)
+    return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit})
+
+
+def _wafer_frame(ax, xe, ye) -> None:
+    cx, cy = (xe[0] + xe[-1]) / 2, (ye[0] + ye[-1]) / 2
+    radius = math.hypot(xe[-1] - cx, ye[-1] - cy) + 0.3
+    ax.add_patch(Circle((cx, cy), radius, fill=False, edgecolor=style.INKS.rule, linewidth=1.2, linestyle=":"))
+    ax.set_xlim(cx - radius - 0.5, cx + radius + 0.5)
+    ax.set_ylim(cy - radius - 0.5, cy + radius + 0.5)
+    ax.set_aspect("equal")
+    ax.set_xlabel("die x")
+    ax.set_ylabel("die y")
+    ax.grid(False)
+
+
+# ---------------------------------------------------------------------------------------------
+def qq_points(measured_s, predicted_s) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Two-sample quantile–quantile points (NIST/SEMATECH e-Handbook §1.3.3.24): the smaller sample
+    sorted, against the larger sample's quantiles at the same plotting positions (i − 0.5)/n.
+    Equal sizes give sorted against sorted. Returns (probabilities, measured, predicted)."""
+    a = np.sort(_finite_values(measured_s))
+    b = np.sort(_finite_values(predicted_s))
+    n = min(a.size, b.size)
+    if n == 0:
+        empty = np.array([])
+        return empty, empty, empty
+    probs = (np.arange(1, n + 1) - 0.5) / n
+    if a.size == b.size:
+        return probs, a, b
+    if a.size < b.size:
+        return probs, a, np.quantile(b, probs)
+    return probs, np.quantile(a, probs), b
+
+
+def qq_plot(measured_s, predicted_s, *, title: str) -> Plot:
+    with rc_context(style.RC):
+        probs, qm, qp = qq_points(measured_s, predicted_s)
+        factor, unit = time_scale(np.concatenate([qm, qp]))
+        fig = _figure((5.6, 5.0))
+        ax = fig.add_subplot()
+        if probs.size:
+            lo = min(qm.min(), qp.min()) / factor
+            hi = max(qm.max(), qp.max()) / factor
+            pad = 0.05 * (hi - lo or 1.0)
+            ax.plot([lo - pad, hi + pad], [lo - pad, hi + pad], color=style.INKS.rule, linestyle="--",
+                    linewidth=1.0, label="measured = predicted", gid="identity")
+            ax.scatter(qp / factor, qm / factor, s=16, color=style.INKS.accent, edgecolors="white",
+                       linewidths=0.4, label=f"{probs.size} quantiles", gid="qq")
+            ax.set_aspect("equal", adjustable="datalim")
+            ax.legend(loc="upper left")
+        else:
+            ax.text(0.5, 0.5, "needs measured and predicted delays", transform=ax.transAxes, ha="center")
+        ax.set_xlabel(f"predicted startup delay [{unit}]")
+        ax.set_ylabel(f"measured startup delay [{unit}]")
+        ax.set_title(title)
+    return Plot("qq", fig, {"probabilities": probs, "measured_s": qm, "predicted_s": qp, "time_unit": unit})
+
+
+# ---------------------------------------------------------------------------------------------
+def hypothesis_fields(h) -> dict[str, Any]:
+    """name, score, evidence, next_experiment of a ranked hypothesis (an object or a mapping)."""
+    get = h.get if isinstance(h, Mapping) else lambda k, d=None: getattr(h, k, d)
+    return {k: get(k) for k in ("name", "score", "evidence", "next_experiment")}
+
+
+def evidence_text(evidence) -> str:
+    if evidence is None:
+        return ""
+    if isinstance(evidence, Mapping):
+        return "; ".join(f"{k} = {_short(v)}" for k, v in evidence.items())
+    if isinstance(evidence, (list, tuple)):
+        return "; ".join(map(str, evidence))
+    return str(evidence)
+
+
+def _short(v) -> str:
+    return f"{v:.4g}" if isinstance(v, float) else str(v)
+
+
+def triage_sheet(part_traces: Sequence[Trace], lot_envelope: Envelope | None, hypotheses: Sequence,
+                 captures: pd.DataFrame, *, part_label: str, lot_label: str = "lot") -> Plot:
+    """One A4 page for a returned part: its traces against its lot's envelope, its captures with
+    verdicts, and the ranked hypotheses with their evidence and the next bench experiment."""
+    with rc_context(style.RC):
+        fig = _figure(style.FIGSIZE_A4)
+        n_rows = min(len(captures), _MAX_TABLE_ROWS)
+        grid = fig.add_gridspec(3, 1, height_ratios=(1.6, 0.3 + 0.075 * n_rows, 1.6))
+        ax = fig.add_subplot(grid[0])
+        spans = [tr.t_s for tr in part_traces] + ([lot_envelope.t_s] if lot_envelope is not None else [])
+        factor, unit = time_scale([np.max(np.abs(s)) for s in spans if s.size] or [1e-6])
+        if lot_envelope is not None:
+            _draw_envelope(ax, lot_envelope, factor, label=f"{lot_label} median")
+        for tr in part_traces:
+            vs = style.verdict_style(tr.verdict)
+            ax.plot(tr.t_s / factor, tr.output_v, color=vs.colour, linewidth=1.3, gid="part_trace")
+            ev = tr.events().get("cross90")
+            if ev:
+                ax.plot(ev[0] / factor, ev[1], marker=vs.marker, color=vs.colour, markeredgecolor=style.INKS.ink)
+        handles = [Line2D([], [], color=style.INKS.ink, linewidth=2.4, label=f"{lot_label} median"),
+                   Patch(color=style.INKS.band, label=f"{lot_label} p05–p95")]
+        for v in style.verdict_order([tr.verdict for tr in part_traces]):
+            vs = style.verdict_style(v)
+            handles.append(Line2D([], [], color=vs.colour, marker=vs.marker, markeredgecolor=style.INKS.ink,
+                                  label=f"{part_label}: {vs.label}"))
+        ax.legend(handles=handles, loc="lower right", fontsize=7.5)
+        ax.set_xlabel(f"time from supply valid [{unit}]")
+        ax.set_ylabel("reference output [V]")
+        ax.set_title(f"Returned part {part_label} against {lot_label}")
+
+        tab = fig.add_subplot(grid[1])
+        tab.set_axis_off()
+        _captures_table(tab, captures)
+
+        hyp = fig.add_subplot(grid[2])
+        hyp.set_axis_off()
+        rows = [hypothesis_fields(h) for h in hypotheses]
+        _hypotheses_block(hyp, rows)
+        fig.suptitle(f"Triage sheet · {part_label}", x=0.02, ha="left")
+    return Plot("triage", fig, {"n_traces": len(part_traces), "hypotheses": rows, "captures": captures})
+
+
+_CAPTURE_COLUMNS = (("temperature_c", "temperature", "°C"), ("ramp_s", "ramp time", "s"), ("repeat", "repeat", ""),
+                    ("verdict", "verdict", None), ("delay_s", "startup delay", "s"), ("settle_s", "settling", "s"))
+
+
+def _cell(value, unit: str | None) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "—"
+    if unit is None:
+        return style.verdict_style(str(value)).label if str(value) in style.VERDICT_STYLES else str(value)
+    if unit in ("", "°C"):
+        return f"{float(value):g}{' ' + unit if unit else ''}"
+    return format_si(float(value), unit)
+
+
+_MAX_TABLE_ROWS = 14
+
+
+def _captures_table(ax, captures: pd.DataFrame, max_rows: int = _MAX_TABLE_ROWS) -> None:
+    cols = [c for c in _CAPTURE_COLUMNS if c[0] in captures.columns]
+    shown = captures.head(max_rows)
+    cells = [[_cell(row[c], unit) for c, _, unit in cols] for _, row in shown.iterrows()]
+    ax.set_title(f"Captures of this part ({len(captures)}{', first ' + str(max_rows) if len(captures) > max_rows else ''})",
+                 fontsize=10)
+    if not cells:
+        ax.text(0.0, 0.5, "no captures", fontsize=9)
+        return
+    table = ax.table(cellText=cells, colLabels=[h for _, h, _ in cols], loc="upper center", cellLoc="center")
+    table.auto_set_font_size(False)
+    table.set_fontsize(7.5)
+    table.scale(1.0, 1.15)
+    vcol = [c for c, _, _ in cols].index("verdict") if any(c == "verdict" for c, _, _ in cols) else None
+    for (r, c), cell in table.get_celld().items():
+        cell.set_edgecolor(style.INKS.grid)
+        if r == 0:
+            cell.set_facecolor(style.INKS.band)
+            cell.set_text_props(weight="bold")
+        elif c == vcol:
+            vs = style.verdict_style(str(shown.iloc[r - 1]["verdict"]))
+            cell.set_facecolor(vs.colour + "40")  # the colour at 25 % opacity; the text names it
+
+
+def _hypotheses_block(ax, rows: Sequence[Mapping], max_rows: int = 6) -> None:
+    ax.set_title("Hypotheses, most likely first", fontsize=10)
+    if not rows:
+        ax.text(0.0, 0.9, "no hypothesis: nothing in this part differs from its lot", fontsize=9,
+                transform=ax.transAxes)
+        return
+    y = 0.95
+    step = 0.158
+    top = max((float(r["score"] or 0.0) for r in rows), default=1.0) or 1.0
+    for rank, r in enumerate(rows[:max_rows], start=1):
+        score = float(r["score"] or 0.0)
+        ax.add_patch(Rectangle((0.70, y - 0.028), 0.2 * score / top, 0.022, transform=ax.transAxes,
+                               color=style.INKS.accent, alpha=0.8, gid="score"))
+        ax.text(0.0, y, f"{rank}. {r['name']}", transform=ax.transAxes, fontsize=9.5, weight="bold", va="top")
+        ax.text(0.985, y, f"score {score:.2f}", transform=ax.transAxes, fontsize=8, va="top", ha="right",
+                color=style.INKS.slate)
+        body = "evidence: " + evidence_text(r["evidence"])
+        if r["next_experiment"]:
+            body += "\nnext: " + str(r["next_experiment"])
+        wrapped = "\n".join(textwrap.fill(line, 112) for line in body.splitlines())
+        ax.text(0.02, y - 0.035, wrapped, transform=ax.transAxes, fontsize=7.5, va="top", color=style.INKS.ink,
+                linespacing=1.25)
+        y -= step

@@ -1,0 +1,218 @@
+"""Report figures: each drawn from known data and checked for what it shows."""
+
+import numpy as np
+import pandas as pd
+import pytest
+from matplotlib.collections import PathCollection, QuadMesh
+from matplotlib.patches import Rectangle, StepPatch
+from matplotlib.text import Text
+
+from labtool.report import plots, style
+from labtool.report.traces import envelope
+from tests.report.tables import measurement_rows, ramp_trace
+
+
+def _by_gid(fig, kind, gid):
+    return [a for ax in fig.axes for a in ax.findobj(kind) if a.get_gid() == gid]
+
+
+def _texts(fig):
+    return [t.get_text() for t in fig.findobj(Text) if t.get_text()]
+
+
+# -- histogram --------------------------------------------------------------------------------
+def test_histogram_bars_equal_the_counts_and_the_verdict_counts_are_beside_it():
+    delays = [1e-6, 1e-6, 2e-6, 3e-6, 3e-6, 3e-6, 5e-6]
+    specs = [("A", "W03", 0, i, "started", d) for i, d in enumerate(delays)]
+    specs += [("A", "W03", 1, 0, "stuck_at_zero", None), ("A", "W03", 1, 1, "stuck_at_zero", None),
+              ("A", "W03", 1, 2, "slow_start", 5e-6)]
+    table = measurement_rows(specs)
+    edges = np.array([0.0, 1.5, 2.5, 3.5, 6.0]) * 1e-6
+    plot = plots.delay_histogram(table, title="A", bins=edges, spec_max_delay_s=4e-6,
+                                 predicted_delays_s=[1e-6, 2e-6, 2e-6, 3e-6])
+    fig = plot.figure
+    # Counted by hand: [1, 1] in the first bin, [2], [3, 3, 3], [5, 5] (one of them the slow start).
+    bars = sorted(_by_gid(fig, Rectangle, "measured"), key=lambda r: r.get_x())
+    assert [r.get_height() for r in bars] == [2, 1, 3, 2]
+    assert [round(r.get_x(), 9) for r in bars] == [0.0, 1.5, 2.5, 3.5]  # drawn in µs
+    assert plot.data["time_unit"] == "µs"
+    # The model's 4 samples scaled to the 8 measured delays: bins hold 1, 2, 1, 0 samples → ×2.
+    (stairs,) = _by_gid(fig, StepPatch, "predicted")
+    np.testing.assert_allclose(stairs.get_data().values, [2.0, 4.0, 2.0, 0.0])
+    (spec,) = [ln for ax in fig.axes for ln in ax.get_lines() if ln.get_gid() == "spec"]
+    assert spec.get_xdata()[0] == pytest.approx(4.0)
+    # Failure verdicts beside it, each a bar whose length is its count, labelled in text too.
+    assert _by_gid(fig, Rectangle, "stuck_at_zero")[0].get_width() == 2
+    assert _by_gid(fig, Rectangle, "slow_start")[0].get_width() == 1
+    assert _by_gid(fig, Rectangle, "ringing")[0].get_width() == 0
+    assert _by_gid(fig, Rectangle, "started") == []  # starts are the title, not a bar
+    texts = _texts(fig)
+    assert "stuck at zero  2" in texts and "slow start  1" in texts
+    assert any("7 of 10 started" in t for t in texts)
+
+
+def test_histogram_default_bins_cover_every_delay_and_count_them_all():
+    rng = np.random.default_rng(3)
+    d = rng.lognormal(np.log(12e-6), 0.3, 500)
+    table = measurement_rows([("A", None, None, None, "started", float(x)) for x in d])
+    plot = plots.delay_histogram(table, title="A")
+    heights = [r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured")]
+    assert sum(heights) == 500
+    # numpy.histogram as the reference counter over the same edges.
+    np.testing.assert_array_equal(heights, np.histogram(d, plot.data["edges_s"])[0])
+
+
+# -- waveform overlay -------------------------------------------------------------------------
+def test_overlay_draws_every_trace_faint_one_bold_median_and_the_event_markers():
+    delays = [10e-6, 12e-6, 14e-6, 16e-6, 18e-6]
+    traces = [ramp_trace(f"c{i}", d) for i, d in enumerate(delays)]
+    plot = plots.waveform_overlay(traces, title="A · 20 µs ramp")
+    fig = plot.figure
+    faint = [ln for ax in fig.axes for ln in ax.get_lines() if ln.get_gid() == "trace"]
+    bold = [ln for ax in fig.axes for ln in ax.get_lines() if ln.get_gid() == "median"]
+    assert len(faint) == 5 and len(bold) == 1
+    assert all(ln.get_alpha() < 0.5 for ln in faint) and bold[0].get_linewidth() > 2 * faint[0].get_linewidth()
+    # 90 % crossings: one marker per trace at (delay, 0.9 · level), coloured as a start.
+    (cross,) = _by_gid(fig, PathCollection, "cross90")
+    np.testing.assert_allclose(cross.get_offsets(), [[d * 1e6, 0.9 * 1.2] for d in delays], rtol=1e-9, atol=1e-9)
+    (supply,) = _by_gid(fig, PathCollection, "t_supply")
+    np.testing.assert_allclose(supply.get_offsets(), [[0.0, 1.8]] * 5)
+    (settle,) = _by_gid(fig, PathCollection, "settle")
+    np.testing.assert_allclose(settle.get_offsets()[:, 0], [(d + 5e-6) * 1e6 for d in delays])
+    # The bold line is the pointwise median: the middle trace here (numpy.median as reference).
+    env = plot.data["envelope"]
+    stack = np.vstack([np.interp(env.t_s, tr.t_s, tr.output_v) for tr in traces])
+    np.testing.assert_allclose(env.median_v, np.median(stack, axis=0))
+    np.testing.assert_allclose(bold[0].get_ydata(), env.median_v)
+
+
+def test_envelope_percentiles_match_numpy_and_skip_traces_outside_their_record():
+    traces = [ramp_trace(f"c{i}", None, offset_v=0.1 * i) for i in range(5)]
+    env = envelope(traces, n_points=50)
+    ref = np.percentile([0.0, 0.1, 0.2, 0.3, 0.4], [5, 50, 95])  # numpy.percentile, linear method
+    np.testing.assert_allclose(env.low_v, ref[0])
+    np.testing.assert_allclose(env.median_v, ref[1])
+    np.testing.assert_allclose(env.high_v, ref[2])
+    short = ramp_trace("short", None, offset_v=10.0)
+    short = type(short)("short", short.t_s[:100], short.output_v[:100], short.supply_v[:100], verdict="stuck_at_zero")
+    env = envelope([*traces, short], n_points=200)
+    late = env.t_s > short.t_s[-1]
+    np.testing.assert_allclose(env.median_v[late], 0.2)  # the short record does not count after its end
+    assert env.median_v[0] == pytest.approx(np.median([0.0, 0.1, 0.2, 0.3, 0.4, 10.0]))  # six cover the start
+
+
+def test_stuck_trace_has_no_crossing_or_settling_marker():
+    plot = plots.waveform_overlay([ramp_trace("a", 10e-6), ramp_trace("b", None, verdict="stuck_at_zero")],
+                                  title="mixed")
+    (cross,) = _by_gid(plot.figure, PathCollection, "cross90")
+    assert len(cross.get_offsets()) == 1
+    assert len(_by_gid(plot.figure, PathCollection, "t_supply")[0].get_offsets()) == 2
+
+
+# -- wafer map --------------------------------------------------------------------------------
+def test_wafer_map_places_each_die_at_its_coordinates():
+    specs = [("A", "W07", 0, 0, "started", 10e-6), ("A", "W07", 0, 0, "started", 14e-6),
+             ("A", "W07", 2, 1, "started", 20e-6), ("A", "W07", -1, 2, "started", 30e-6),
+             ("A", "W07", -1, 2, "stuck_at_zero", None), ("A", "W07", 1, -1, "ringing", 16e-6)]
+    plot = plots.wafer_map(measurement_rows(specs), title="A")
+    fig = plot.figure
+    (delay_mesh,) = _by_gid(fig, QuadMesh, "delay_map")
+    grid = delay_mesh.get_array()  # rows are die_y from −1, columns die_x from −1
+    assert grid.shape == (4, 4)
+    expected = {(0, 0): 12.0, (2, 1): 20.0, (-1, 2): 30.0, (1, -1): 16.0}  # medians in µs
+    for (x, y), v in expected.items():
+        assert grid[y + 1, x + 1] == pytest.approx(v)
+    assert int(np.ma.count(grid)) == 4  # every other position is empty
+    # Verdict map: the most severe verdict per die, drawn as its marker at the die's position.
+    stuck = _by_gid(fig, PathCollection, "verdict:stuck_at_zero")[0].get_offsets()
+    started = _by_gid(fig, PathCollection, "verdict:started")[0].get_offsets()
+    ringing = _by_gid(fig, PathCollection, "verdict:ringing")[0].get_offsets()
+    np.testing.assert_array_equal(stuck, [[-1, 2]])
+    np.testing.assert_array_equal(sorted(map(tuple, started)), [(0, 0), (2, 1)])
+    np.testing.assert_array_equal(ringing, [[1, -1]])
+    (vmesh,) = _by_gid(fig, QuadMesh, "verdict_map")
+    codes = list(style.VERDICT_STYLES)
+    assert vmesh.get_array()[2 + 1, -1 + 1] == codes.index("stuck_at_zero")
+    dies = plot.data["dies"].set_index(["die_x", "die_y"])
+    assert dies.loc[(0, 0), "n"] == 2 and dies.loc[(-1, 2), "verdict"] == "stuck_at_zero"
+
+
+def test_wafer_map_draws_one_row_per_wafer_and_says_when_no_die_is_known():
+    specs = [("A", "W03", 0, 0, "started", 1e-5), ("A", "W11", 0, 0, "started", 2e-5)]
+    plot = plots.wafer_map(measurement_rows(specs), title="A")
+    assert len(_by_gid(plot.figure, QuadMesh, "delay_map")) == 2
+    empty = plots.wafer_map(measurement_rows([("A", None, None, None, "started", 1e-5)]), title="A")
+    assert "no die positions recorded" in _texts(empty.figure)
+
+
+# -- QQ ---------------------------------------------------------------------------------------
+def test_qq_equal_sizes_pairs_the_sorted_samples():
+    # NIST/SEMATECH e-Handbook §1.3.3.24: with equal sizes the QQ plot is sorted vs sorted.
+    measured = np.array([5.0, 1.0, 3.0, 2.0, 4.0]) * 1e-6
+    predicted = np.array([2.5, 0.5, 1.5, 4.5, 3.5]) * 1e-6
+    plot = plots.qq_plot(measured, predicted, title="qq")
+    (pts,) = _by_gid(plot.figure, PathCollection, "qq")
+    np.testing.assert_allclose(pts.get_offsets(), np.column_stack([np.sort(predicted), np.sort(measured)]) * 1e6)
+    np.testing.assert_allclose(plot.data["probabilities"], [0.1, 0.3, 0.5, 0.7, 0.9])
+
+
+def test_qq_unequal_sizes_interpolates_the_larger_sample():
+    # e-Handbook §1.3.3.24 (from memory): the larger sample's quantiles at the smaller's plotting
+    # positions; numpy.quantile (linear) is the reference for those quantiles.
+    measured = np.array([3.0, 1.0, 2.0]) * 1e-6
+    predicted = np.linspace(0.0, 10.0, 101) * 1e-6
+    probs, qm, qp = plots.qq_points(measured, predicted)
+    np.testing.assert_allclose(probs, [1 / 6, 0.5, 5 / 6])
+    np.testing.assert_allclose(qm, [1e-6, 2e-6, 3e-6])
+    np.testing.assert_allclose(qp, np.quantile(predicted, probs))
+    np.testing.assert_allclose(qp, [10 / 6 * 1e-6, 5e-6, 50 / 6 * 1e-6])  # uniform grid: q(p) = 10 µs · p
+
+
+# -- delay versus conditions ------------------------------------------------------------------
+def test_condition_spread_matches_numpy_percentiles_and_counts_stuck_captures():
+    rows = []
+    for ramp, ds in ((1e-5, [10e-6, 11e-6, 12e-6, 30e-6]), (1e-3, [20e-6, 22e-6])):
+        rows += [{"lot": "A", "ramp_s": ramp, "temperature_c": 25.0, "verdict": "started", "delay_s": d} for d in ds]
+    rows.append({"lot": "A", "ramp_s": 1e-3, "temperature_c": -40.0, "verdict": "stuck_at_zero", "delay_s": None})
+    table = pd.DataFrame(rows)
+    plot = plots.delay_vs_conditions(table, title="A")
+    ramp = plot.data["ramp_s"].set_index("ramp_s")
+    fast = np.array([10e-6, 11e-6, 12e-6, 30e-6])
+    assert ramp.loc[1e-5, "delay_median_s"] == pytest.approx(np.median(fast))
+    assert ramp.loc[1e-5, "delay_p95_s"] == pytest.approx(np.percentile(fast, 95))
+    assert ramp.loc[1e-3, "n"] == 2 and ramp.loc[1e-3, "n_stuck"] == 1
+    temp = plot.data["temperature_c"].set_index("temperature_c")
+    assert temp.loc[-40.0, "n"] == 0 and temp.loc[-40.0, "n_stuck"] == 1
+    assert "1 stuck" in _texts(plot.figure)
+    points = _by_gid(plot.figure, PathCollection, "capture")
+    assert sum(len(p.get_offsets()) for p in points) == 2 * len(table)  # every capture, in both panels
+
+
+# -- triage sheet -----------------------------------------------------------------------------
+def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses():
+    lot = [ramp_trace(f"l{i}", d) for i, d in enumerate([10e-6, 11e-6, 12e-6])]
+    part = [ramp_trace("p1", 30e-6, verdict="slow_start"), ramp_trace("p2", None, verdict="stuck_at_zero")]
+    hypotheses = [{"name": "weak startup current", "score": 0.8, "evidence": {"delay_ratio": 2.5},
+                   "next_experiment": "raise the ramp time and repeat"},
+                  {"name": "bistable near escape", "score": 0.3, "evidence": ["1 of 2 cycles stuck"],
+                   "next_experiment": ""}]
+    captures = pd.DataFrame({"temperature_c": [25.0, -40.0], "ramp_s": [1e-4, 1e-3], "repeat": [1, 1],
+                             "verdict": ["slow_start", "stuck_at_zero"], "delay_s": [30e-6, None]})
+    plot = plots.triage_sheet(part, envelope(lot), hypotheses, captures, part_label="A/p07", lot_label="A")
+    fig = plot.figure
+    assert tuple(fig.get_size_inches()) == pytest.approx(style.FIGSIZE_A4)
+    assert len([ln for ln in fig.axes[0].get_lines() if ln.get_gid() == "part_trace"]) == 2
+    assert len([ln for ln in fig.axes[0].get_lines() if ln.get_gid() == "median"]) == 1
+    texts = _texts(fig)
+    assert "1. weak startup current" in texts and "2. bistable near escape" in texts
+    assert any("delay_ratio = 2.5" in t and "next: raise the ramp time" in t for t in texts)
+    (table,) = [t for ax in fig.axes for t in ax.tables]
+    cells = {cell.get_text().get_text() for cell in table.get_celld().values()}
+    assert {"slow start", "stuck at zero", "30 µs", "—", "-40 °C", "1 ms"} <= cells
+    bars = sorted(_by_gid(fig, Rectangle, "score"), key=lambda r: -r.get_width())
+    assert bars[0].get_width() == pytest.approx(0.2) and bars[1].get_width() == pytest.approx(0.2 * 0.3 / 0.8)
+
+
+def test_plots_render_to_png():
+    plot = plots.qq_plot([1e-6, 2e-6], [1e-6, 2e-6], title="png")
+    assert plot.png()[:8] == b"\x89PNG\r\n\x1a\n"
