@@ -18,7 +18,7 @@ import pandas as pd
 from labtool.errors import UsageError
 from labtool.stats.distributions import DistributionFit, best_fit
 from labtool.stats.intervals import upper_bound
-from labtool.stats.outliers import outlier_mask
+from labtool.stats.outliers import MODIFIED_Z_LIMIT, modified_z_scores
 from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, delays, groups, part_labels,
                                  plain, require_columns)
 
@@ -78,44 +78,36 @@ def process_capability(mean: float, std: float, *, usl: float | None = None, lsl
     return float(min(sides) / (3.0 * std))
 
 
-def delay_outliers(rows: pd.DataFrame) -> tuple[str, ...]:
-    """capture_ids whose delay has |modified z| > 3.5 among the captures of its set-up cell."""
-    if "delay_s" not in rows.columns or "capture_id" not in rows.columns:
-        return ()
-    d = pd.to_numeric(rows["delay_s"], errors="coerce")
-    keys = cell_keys(rows)
-    found: list[str] = []
-    cells = rows.groupby(keys, dropna=False).indices.values() if keys else [np.arange(len(rows))]
-    values = d.to_numpy(dtype=np.float64)
-    ids = rows["capture_id"].to_numpy()
-    for idx in cells:
-        v = values[idx]
-        if np.count_nonzero(np.isfinite(v)) >= MIN_CELL_FOR_OUTLIERS:
-            found.extend(ids[idx][outlier_mask(v)])
-    return tuple(sorted(map(str, found)))
+def outlier_flags(df: pd.DataFrame, by: Sequence[str] = ()) -> np.ndarray:
+    """True per row whose delay has |modified z| > 3.5 among the captures of its group and set-up cell
+    (cells with fewer than MIN_CELL_FOR_OUTLIERS delays are not screened)."""
+    if "delay_s" not in df.columns:
+        return np.zeros(len(df), bool)
+    keys = [*by, *(k for k in cell_keys(df) if k not in by)]
+    codes = df.groupby(keys, dropna=False, sort=False).ngroup().to_numpy() if keys else np.zeros(len(df), int)
+    d = pd.to_numeric(df["delay_s"], errors="coerce").to_numpy(np.float64)
+    count = pd.Series(np.isfinite(d)).groupby(codes).transform("sum").to_numpy()
+    z = np.nan_to_num(modified_z_scores(d, codes), nan=0.0)
+    return (np.abs(z) > MODIFIED_Z_LIMIT) & (count >= MIN_CELL_FOR_OUTLIERS)
 
 
-def intermittent_parts(rows: pd.DataFrame) -> tuple[str, ...]:
-    """Parts (``LOT/PART``) with at least one capture that came up and one that did not hold at one set-up."""
-    if "part" not in rows.columns:
-        return ()
-    labels = part_labels(rows)
-    came_up = rows["verdict"].isin(CAME_UP)
-    failed = rows["verdict"].isin(FAILED_TO_HOLD)
-    frame = pd.DataFrame({"label": labels, "up": came_up, "failed": failed})
-    for k in cell_keys(rows):
-        frame[k] = rows[k]
-    frame = frame[frame["label"] != ""]
-    agg = frame.groupby(["label", *cell_keys(rows)], dropna=False)[["up", "failed"]].any()
-    both = agg[agg["up"] & agg["failed"]]
-    return tuple(sorted(set(both.index.get_level_values("label"))))
+def intermittent_flags(df: pd.DataFrame, labels: pd.Series, by: Sequence[str] = ()) -> np.ndarray:
+    """True per row of a part that, within its group and set-up cell, both came up and failed to hold."""
+    keys = [*by, *(k for k in cell_keys(df) if k not in by)]
+    frame = pd.DataFrame({"label": labels.to_numpy(), "up": df["verdict"].isin(CAME_UP).to_numpy(),
+                          "failed": df["verdict"].isin(FAILED_TO_HOLD).to_numpy()})
+    for k in keys:
+        frame[k] = df[k].to_numpy()
+    g = frame.groupby(["label", *keys], dropna=False, sort=False)
+    both = g["up"].transform("any") & g["failed"].transform("any")
+    return (both & (frame["label"] != "")).to_numpy()
 
 
 def _one_group(group: dict, rows: pd.DataFrame, spec_max_delay_s: float | None) -> LotStats:
     verdicts = rows["verdict"].value_counts()
     counts = {name: int(verdicts.get(v, 0)) for name, v in VERDICT_COUNTS.items()}
     n = len(rows)
-    labels = part_labels(rows)
+    labels = rows["_part_label"]
     d = delays(rows)
     has = d.size > 0
     mean = float(d.mean()) if has else None
@@ -131,7 +123,8 @@ def _one_group(group: dict, rows: pd.DataFrame, spec_max_delay_s: float | None) 
         delay_mean_s=mean, delay_std_s=std, delay_fit=fit.best if fit else None,
         spec_max_delay_s=spec_max_delay_s,
         cpk=process_capability(mean, std, usl=spec_max_delay_s) if spec_max_delay_s is not None and has else None,
-        outliers=delay_outliers(rows), intermittent_parts=intermittent_parts(rows))
+        outliers=tuple(sorted(map(str, rows.loc[rows["_outlier"], "capture_id"]))) if "capture_id" in rows else (),
+        intermittent_parts=tuple(sorted(set(labels[rows["_intermittent"]]))))
 
 
 def lot_statistics(measurements: pd.DataFrame, by: Sequence[str] = ("lot",),
@@ -140,7 +133,11 @@ def lot_statistics(measurements: pd.DataFrame, by: Sequence[str] = ("lot",),
     if measurements.empty:
         raise UsageError("no measurements: run `labtool measure CAMPAIGN` first")
     require_columns(measurements, ["verdict"], "lot statistics")
-    return [_one_group(g, rows, spec_max_delay_s) for g, rows in groups(measurements, by, "--by")]
+    require_columns(measurements, by, "--by")
+    labels = part_labels(measurements)
+    table = measurements.assign(_part_label=labels.to_numpy(), _outlier=outlier_flags(measurements, by),
+                                _intermittent=intermittent_flags(measurements, labels, by))
+    return [_one_group(g, rows, spec_max_delay_s) for g, rows in groups(table, by, "--by")]
 
 
 def lot_table(stats: Sequence[LotStats]) -> pd.DataFrame:

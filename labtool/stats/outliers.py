@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from scipy.stats import t as student_t
 
 from labtool.errors import UsageError
@@ -22,25 +23,18 @@ _MAD_FACTOR = 0.6745
 _MEANAD_FACTOR = 1.253314
 
 
-def modified_z_scores(values: np.ndarray) -> np.ndarray:
-    """Modified z-score of each value (NaN where the value is NaN; zeros when all values are equal)."""
-    x = np.asarray(values, dtype=np.float64)
-    finite = x[np.isfinite(x)]
-    out = np.full(x.shape, np.nan)
-    if finite.size == 0:
-        return out
-    med = np.median(finite)
-    mad = np.median(np.abs(finite - med))
-    if mad > 0:
-        scale = mad / _MAD_FACTOR
-    else:
-        mean_ad = np.mean(np.abs(finite - med))
-        if mean_ad == 0:
-            out[np.isfinite(x)] = 0.0
-            return out
-        scale = _MEANAD_FACTOR * mean_ad
-    out[np.isfinite(x)] = (x[np.isfinite(x)] - med) / scale
-    return out
+def modified_z_scores(values: np.ndarray, groups: np.ndarray | None = None) -> np.ndarray:
+    """Modified z-score of each value, against the median and MAD of its group (``groups``: one label
+    per value; default one group). NaN where the value is NaN; 0 where all of a group's values are equal."""
+    x = pd.Series(np.asarray(values, dtype=np.float64))
+    key = np.zeros(len(x), dtype=np.int64) if groups is None else np.asarray(groups)
+    med = x.groupby(key).transform("median")
+    dev = (x - med).abs().groupby(key)
+    mad, mean_ad = dev.transform("median"), dev.transform("mean")
+    scale = np.where(mad > 0, mad / _MAD_FACTOR, _MEANAD_FACTOR * mean_ad)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(scale > 0, (x - med) / scale, 0.0)
+    return np.where(np.isfinite(x), z, np.nan)
 
 
 def outlier_mask(values: np.ndarray, limit: float = MODIFIED_Z_LIMIT) -> np.ndarray:
