@@ -1,0 +1,1 @@
+"""Reports: plots, the workbook and the self-contained HTML page of a campaign."""
