@@ -1,0 +1,233 @@
+"""DC analysis of the self-biased core: both equilibria, feedback polarity, offset and startup limits.
+
+The core (Razavi, Design of Analog CMOS ICs, 2nd ed., ch. 12; Gray/Hurst/Lewis/Meyer §4.4): equal
+mirror currents I feed diode Q1 (node 1) and R1 in series with diode Q2 of N times the area (nodes 2
+and 3). The amplifier drives the mirror gate so that V1 = V2. With the full diode law and leakage,
+
+    vd(I) = V1(I) − V2(I) + Vos + (VG(I) − VDD/2)/A0,   V2 = I·R1 + V3(I)
+
+is the amplifier's input at core current I (the last term is the input that holds the output at VG
+with finite DC gain A0). Both I = 0 and the wanted I_op satisfy vd = 0. dvd/dI > 0 is net positive
+feedback (near zero current, where VT/I is large), < 0 net negative (at the operating point); the sign
+changes at i_switch where VT/(IS + I) − VT/(N·IS + I) = R1 (without leakage).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+
+from labtool.errors import ModelError
+from labtool.model import physics
+
+_I_GRID = np.logspace(-16, -2, 561)  # core currents scanned, A (fA to 10 mA)
+
+
+@dataclass(frozen=True)
+class FeedbackSegment:
+    from_a: float
+    to_a: float
+    polarity: str  # "positive" or "negative"
+
+
+@dataclass(frozen=True)
+class DcResult:
+    """The DC picture of one design at one temperature (behavioural model, not sign-off)."""
+
+    temperature_c: float
+    ut_v: float
+    i_op_a: float | None  # wanted operating point; None when it does not exist
+    dvbe_v: float | None  # V(Q1) − V(Q2) at i_op_a
+    vref_v: float | None  # reference output at i_op_a
+    vg_op_v: float | None  # mirror gate at i_op_a
+    i_ptat_ideal_a: float  # VT·ln N / R1, the high-current limit
+    i_switch_a: float | None  # where the net feedback changes sign
+    offset_limit_v: float  # an input offset at or below this removes the wanted point (signed)
+    i_zero_a: float  # core current of the zero state (mirror off-state current)
+    i_start_min_a: float | None  # minimum startup current that escapes the zero state; None: cannot
+    startup_kind: str
+    feedback: tuple[FeedbackSegment, ...] = field(default=())
+
+    def to_json_dict(self) -> dict[str, Any]:
+        d = {k: getattr(self, k) for k in self.__dataclass_fields__ if k != "feedback"}
+        d["feedback"] = [vars(s) for s in self.feedback]
+        return d
+
+
+def core_voltages(p: Mapping[str, Any], i_core, i_inject=0.0):
+    """V1, V2, V3 with core current ``i_core`` in both branches and ``i_inject`` added into node 1."""
+    ut = p["ut_v"]
+    is1 = p["is_a"] * (1.0 + p["is_dev_q1"])
+    is2 = p["is_a"] * p["area_ratio"] * (1.0 + p["is_dev_q2"])
+    v1 = physics.node_voltage(np.asarray(i_core) + i_inject, is1, p["leak_q1_a"], ut)
+    v3 = physics.node_voltage(i_core, is2, p["leak_q2_a"], ut)
+    return v1, np.asarray(i_core) * p["r1_ohm"] + v3, v3
+
+
+def gate_voltage(p: Mapping[str, Any], i_core):
+    """Mirror gate that carries ``i_core`` (saturated EKV), limited to the supply rails."""
+    vsg = physics.mos_vsg_for_current(i_core, p["mos_vt0_v"], p["mos_slope_n"], p["mos_i_spec_a"], p["ut_v"])
+    return np.clip(p["vdd_v"] - vsg, 0.0, p["vdd_v"])
+
+
+def loop_drive(p: Mapping[str, Any], i_core, i_inject=0.0, *, offset: bool = True):
+    """The amplifier's effective input vd(I) (see the module docstring)."""
+    v1, v2, _ = core_voltages(p, i_core, i_inject)
+    gain_term = (gate_voltage(p, i_core) - 0.5 * p["vdd_v"]) / p["amp_dc_gain"]
+    return v1 - v2 + gain_term + (p["amp_offset_v"] if offset else 0.0)
+
+
+def loop_slope(p: Mapping[str, Any], i_core):
+    """dvd/dI without the small gain term: r(node 1) − R1 − r(node 3); its sign is the net feedback."""
+    v1, _, v3 = core_voltages(p, i_core)
+    ut = p["ut_v"]
+    r1 = physics.node_resistance(v1, p["is_a"] * (1.0 + p["is_dev_q1"]), p["leak_q1_a"], ut)
+    r3 = physics.node_resistance(v3, p["is_a"] * p["area_ratio"] * (1.0 + p["is_dev_q2"]), p["leak_q2_a"], ut)
+    return r1 - p["r1_ohm"] - r3
+
+
+def amplifier_alive(p: Mapping[str, Any], i_core, i_inject=0.0):
+    """Fraction of the input pair that conducts at the common-mode voltage of this current."""
+    v1, v2, _ = core_voltages(p, i_core, i_inject)
+    return physics.sigmoid((0.5 * (v1 + v2) - p["amp_vcm_min_v"]) / p["amp_vcm_soft_v"])
+
+
+def amplifier_bias(p: Mapping[str, Any], i_core):
+    if p["amp_bias"] == "fixed":
+        return np.full(np.shape(i_core), p["amp_bias_a"], dtype=float)
+    return p["amp_bias_min_a"] + p["amp_bias_ratio"] * np.asarray(i_core, dtype=float)
+
+
+def _bisect_log(fn, lo: float, hi: float, iterations: int = 80) -> float:
+    """Root of ``fn`` between ``lo`` and ``hi`` (fn(lo) and fn(hi) of opposite sign), in log current."""
+    a, b = np.log(lo), np.log(hi)
+    fa = fn(lo) > 0
+    for _ in range(iterations):
+        m = 0.5 * (a + b)
+        if (fn(np.exp(m)) > 0) == fa:
+            a = m
+        else:
+            b = m
+    return float(np.exp(0.5 * (a + b)))
+
+
+def _last_down_crossing(values):
+    """Index i with values[i] > 0 ≥ values[i+1], the last one; None when there is none."""
+    idx = np.nonzero((values[:-1] > 0) & (values[1:] <= 0))[0]
+    return int(idx[-1]) if idx.size else None
+
+
+def operating_point(p: Mapping[str, Any]) -> float | None:
+    """The wanted current: the highest stable zero of vd(I) (vd falls through zero), or None."""
+    vd = loop_drive(p, _I_GRID)
+    k = _last_down_crossing(vd)
+    if k is None:
+        return None
+    return _bisect_log(lambda i: loop_drive(p, i), _I_GRID[k], _I_GRID[k + 1])
+
+
+def switch_current(p: Mapping[str, Any]) -> float | None:
+    """The current where the net feedback changes from positive to negative (dvd/dI = 0)."""
+    slope = loop_slope(p, _I_GRID)
+    idx = np.nonzero((slope[:-1] > 0) & (slope[1:] <= 0))[0]
+    if not idx.size:
+        return None
+    k = int(idx[0])
+    return _bisect_log(lambda i: loop_slope(p, i), _I_GRID[k], _I_GRID[k + 1])
+
+
+def feedback_map(p: Mapping[str, Any]) -> tuple[FeedbackSegment, ...]:
+    """Net feedback polarity of the loop versus core current, as contiguous segments."""
+    positive = loop_slope(p, _I_GRID) > 0
+    edges = np.nonzero(positive[1:] != positive[:-1])[0]
+    starts = np.concatenate([[0], edges + 1])
+    ends = np.concatenate([edges + 1, [len(_I_GRID) - 1]])
+    return tuple(FeedbackSegment(float(_I_GRID[a]), float(_I_GRID[b]), "positive" if positive[a] else "negative")
+                 for a, b in zip(starts, ends))
+
+
+def escapes(p: Mapping[str, Any], i_inject: float, i_target: float) -> bool:
+    """With ``i_inject`` into node 1, is the amplifier alive and driving upward at every core current
+    below ``i_target``? (Then the zero state is no longer an equilibrium.)"""
+    grid = np.logspace(-16, np.log10(i_target), 200)
+    return bool(np.all((loop_drive(p, grid, i_inject) > 0) & (amplifier_alive(p, grid, i_inject) > 0.5)))
+
+
+def pulldown_needed(p: Mapping[str, Any], i_target: float) -> float:
+    """Largest current with which the amplifier holds the gate up at any core current below the target:
+    its full tail when the input pair is off, otherwise its drive when the input is of the wrong sign."""
+    grid = np.logspace(-16, np.log10(i_target), 200)
+    alive = amplifier_alive(p, grid)
+    ib = amplifier_bias(p, grid)
+    wrong = np.clip(-np.tanh(loop_drive(p, grid) / _input_linear_range(p, i_target)), 0.0, None)
+    return float(np.max(ib * ((1.0 - alive) + alive * wrong)))
+
+
+def _input_linear_range(p: Mapping[str, Any], i_op: float) -> float:
+    """Input voltage over which the OTA is linear: bias/gm with gm = 2π·GBW·C at the operating bias."""
+    ib = np.maximum(amplifier_bias(p, np.asarray(i_op)), 1e-15)
+    return ib / (2.0 * np.pi * p["amp_gbw_hz"] * (p["c_gate_f"] + p["c_gs_f"]))
+
+
+def input_linear_range(p: Mapping[str, Any]) -> float:
+    """As used by the transient: at the high-current estimate of the operating point."""
+    return _input_linear_range(p, ideal_ptat_current(p))
+
+
+def ideal_ptat_current(p: Mapping[str, Any]):
+    """VT·ln N / R1 (Razavi ch. 12), the operating current in the high-current limit."""
+    return p["ut_v"] * np.log(p["area_ratio"]) / p["r1_ohm"]
+
+
+def minimum_startup_current(p: Mapping[str, Any], i_op: float | None) -> float | None:
+    """Smallest startup current of the design's kind that escapes the zero state (None: none can).
+
+    Injection and kick kinds inject into node 1: the smallest injection for which :func:`escapes`
+    holds up to 0.9·i_op (bisection in log current). The pull-down must beat the amplifier's hold on the
+    gate (:func:`pulldown_needed`). The DC criterion ignores how slowly a starved amplifier moves;
+    the transient shows that.
+    """
+    if i_op is None:
+        return None
+    target = 0.9 * i_op
+    if p["startup_kind"] == "pulldown":
+        return pulldown_needed(p, target)
+    lo, hi = 1e-16, 1e-2
+    if escapes(p, lo, target):
+        return lo
+    if not escapes(p, hi, target):
+        return None
+    for _ in range(60):
+        mid = np.sqrt(lo * hi)
+        if escapes(p, mid, target):
+            hi = mid
+        else:
+            lo = mid
+    return float(hi)
+
+
+def dc_analysis(design, temperature_c: float | None = None) -> DcResult:
+    """Both equilibria, the feedback map and the startup limits of ``design`` at ``temperature_c``."""
+    p = design.resolved(temperature_c)
+    if p["amp_offset_v"] != p["amp_offset_v"]:
+        raise ModelError("amp_offset_v is not a number")
+    i_op = operating_point(p)
+    i_sw = switch_current(p)
+    peak = float(loop_drive(p, i_sw, offset=False)) if i_sw is not None else 0.0
+    ut = p["ut_v"]
+    dvbe = vref = vg = None
+    if i_op is not None:
+        v1, _, v3 = core_voltages(p, i_op)
+        dvbe = float(v1 - v3)
+        i_out = p["mirror_out_ratio"] * i_op
+        v_q3 = physics.node_voltage(i_out, p["is_a"] * (1.0 + p["is_dev_q3"]), 0.0, ut)
+        vref = float(v_q3 + i_out * p["r2_ohm"])
+        vg = float(gate_voltage(p, i_op))
+    i_zero = float(physics.mos_current(0.0, p["vdd_v"], p["mos_vt0_v"], p["mos_slope_n"], p["mos_i_spec_a"], ut))
+    return DcResult(
+        temperature_c=float(p["temperature_c"]), ut_v=float(ut), i_op_a=i_op, dvbe_v=dvbe, vref_v=vref,
+        vg_op_v=vg, i_ptat_ideal_a=float(ideal_ptat_current(p)), i_switch_a=i_sw, offset_limit_v=-peak,
+        i_zero_a=i_zero, i_start_min_a=minimum_startup_current(p, i_op), startup_kind=p["startup_kind"],
+        feedback=feedback_map(p))
