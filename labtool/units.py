@@ -4,15 +4,25 @@ from __future__ import annotations
 
 import math
 import re
+from decimal import Decimal
 
 from labtool.errors import UsageError
 
-# SI prefixes, BIPM SI Brochure 9th ed. table 7 (the ones bench files use, plus "u" for micro).
-SI_PREFIXES: dict[str, float] = {
-    "Y": 1e24, "Z": 1e21, "E": 1e18, "P": 1e15, "T": 1e12, "G": 1e9, "M": 1e6, "k": 1e3,
-    "": 1.0,
-    "m": 1e-3, "µ": 1e-6, "μ": 1e-6, "u": 1e-6, "n": 1e-9, "p": 1e-12, "f": 1e-15, "a": 1e-18,
-}
+# The SI prefixes: BIPM SI Brochure, 9th ed. (2019), §3, table 7 — (name, symbol, factor).
+SI_PREFIX_TABLE: tuple[tuple[str, str, float], ...] = (
+    ("yotta", "Y", 1e24), ("zetta", "Z", 1e21), ("exa", "E", 1e18), ("peta", "P", 1e15),
+    ("tera", "T", 1e12), ("giga", "G", 1e9), ("mega", "M", 1e6), ("kilo", "k", 1e3),
+    ("hecto", "h", 1e2), ("deca", "da", 1e1), ("deci", "d", 1e-1), ("centi", "c", 1e-2),
+    ("milli", "m", 1e-3), ("micro", "μ", 1e-6), ("nano", "n", 1e-9), ("pico", "p", 1e-12),
+    ("femto", "f", 1e-15), ("atto", "a", 1e-18), ("zepto", "z", 1e-21), ("yocto", "y", 1e-24),
+)
+# Prefix symbol → factor inside a unit ("mV", "daHz"). Bench files also write the micro sign
+# U+00B5 and a plain "u" for micro.
+SI_PREFIXES: dict[str, float] = {"": 1.0, **{sym: f for _, sym, f in SI_PREFIX_TABLE}, "µ": 1e-6, "u": 1e-6}
+# A bare prefix after a number ("500u" seconds) is read only for the powers of 1000, so "25c" is
+# never taken as 0.25.
+ENGINEERING_PREFIXES: dict[str, float] = {s: f for s, f in SI_PREFIXES.items()
+                                          if s and round(math.log10(f)) % 3 == 0}
 
 _PREFIX_BY_EXPONENT = {24: "Y", 21: "Z", 18: "E", 15: "P", 12: "T", 9: "G", 6: "M", 3: "k", 0: "",
                        -3: "m", -6: "µ", -9: "n", -12: "p", -15: "f", -18: "a"}
@@ -33,6 +43,8 @@ def parse_unit(text: str) -> tuple[str, float]:
     u = text.strip()
     if u in _UNIT_ALIASES:
         return _UNIT_ALIASES[u], 1.0
+    if len(u) > 2 and u.lower() in _UNIT_ALIASES:  # "Volts", "SEC"; short symbols stay case-sensitive
+        return _UNIT_ALIASES[u.lower()], 1.0
     if u in BASE_UNITS:
         return u, 1.0
     for base in sorted((*BASE_UNITS, *_UNIT_ALIASES), key=len, reverse=True):
@@ -60,15 +72,20 @@ def parse_quantity(text: str | float, unit: str, *, what: str = "value") -> floa
     suffix = (m.group(2) or "").strip()
     if not suffix:
         return number
-    if suffix in SI_PREFIXES:
-        return number * SI_PREFIXES[suffix]
+    if suffix in ENGINEERING_PREFIXES:
+        return _scaled(m.group(1), ENGINEERING_PREFIXES[suffix])
     try:
         base, factor = parse_unit(suffix)
     except UsageError:
         raise UsageError(f"{what}: unknown unit in {text!r} (expected {unit})") from None
     if base != unit:
         raise UsageError(f"{what}: {text!r} is in {base}, expected {unit}")
-    return number * factor
+    return _scaled(m.group(1), factor)
+
+
+def _scaled(number_text: str, factor: float) -> float:
+    """``number_text`` × ``factor`` rounded once, so "10us" is exactly the float 1e-05."""
+    return float(Decimal(number_text) * Decimal(repr(factor)))
 
 
 def parse_level(text: str | float, *, what: str = "level") -> tuple[str, float]:
