@@ -13,18 +13,29 @@ from scipy import signal
 
 def second_order_step(t, *, zeta: float, wn: float, delay_s: float) -> np.ndarray:
     """Unit step response of ωn²/(s² + 2ζωn·s + ωn²), delayed, by scipy.signal.step on the samples."""
-    y = np.zeros_like(t)
-    late = t > delay_s
-    _, y[late] = signal.step(([wn * wn], [1.0, 2 * zeta * wn, wn * wn]), T=t[late] - delay_s)
-    return y
+    grid, late = _grid_from_step(t, delay_s)
+    _, response = signal.step(([wn * wn], [1.0, 2 * zeta * wn, wn * wn]), T=grid)
+    return _on_samples(t, delay_s, late, grid, response)
 
 
 def first_order_step(t, *, tau_s: float, delay_s: float) -> np.ndarray:
     """Unit step response of 1/(τs + 1), delayed, by scipy.signal.lsim with a unit step input."""
-    y = np.zeros_like(t)
+    grid, late = _grid_from_step(t, delay_s)
+    _, response, _ = signal.lsim(([1.0], [tau_s, 1.0]), U=np.ones_like(grid), T=grid)
+    return _on_samples(t, delay_s, late, grid, response)
+
+
+def _grid_from_step(t, delay_s):
+    """scipy simulates on a uniform grid that starts at the step; ours is the record's own step size."""
     late = t > delay_s
-    s = t[late] - delay_s
-    _, y[late], _ = signal.lsim(([1.0], [tau_s, 1.0]), U=np.ones_like(s), T=s)
+    dt = float(np.median(np.diff(t)))
+    return np.arange(0.0, t[-1] - delay_s + 2 * dt, dt), late
+
+
+def _on_samples(t, delay_s, late, grid, response):
+    """The response at the record's samples (they fall on the grid when the delay is on a sample)."""
+    y = np.zeros_like(t)
+    y[late] = np.interp(t[late] - delay_s, grid, response)
     return y
 
 

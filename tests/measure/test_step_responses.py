@@ -68,9 +68,10 @@ def test_second_order_delay_and_two_percent_settling(bits, noise):
     t, s, o = _record(lambda t: second_order_step(t, zeta=zeta, wn=wn, delay_s=DELAY), bits=bits, noise=noise)
     r = measure_arrays(t, s, o, Limits(band_pct=2))
     # 90 % instant of the reference response, from scipy.signal.step on a fine grid (reference library).
-    fine = np.linspace(0.0, 3.0, 300001)
-    unit = second_order_step(fine, zeta=zeta, wn=5.0, delay_s=-1.0)
-    t90 = fine[np.argmax(unit >= 0.9)] * T_UNIT
+    fine = np.linspace(0.0, 1.0, 10001)
+    unit = second_order_step(fine, zeta=zeta, wn=5.0, delay_s=-1e-12)
+    k = int(np.argmax(unit >= 0.9))
+    t90 = np.interp(0.9, unit[k - 1:k + 1], fine[k - 1:k + 1]) * T_UNIT
     t_supply = 0.9 * RAMP
     # delay = output 90 % instant − supply 90 % instant; both are good to ~1 % of their scale (above).
     assert r.delay_s == pytest.approx(DELAY + t90 - t_supply, abs=0.01 * RAMP)
@@ -112,7 +113,7 @@ def test_first_order_rise_settling_no_ringing(bits, noise):
     assert r.ring_hz is None and r.damping is None
     assert r.fit.order == 1
     assert r.fit.params["tau_s"] == pytest.approx(tau, rel=0.01)
-    assert r.fit.params["t_d_s"] == pytest.approx(DELAY, abs=0.01 * tau)
+    assert r.fit.params["t_d_s"] == pytest.approx(DELAY, abs=0.005 * tau)
 
 
 def test_non_uniform_time_base_gives_the_same_numbers():
@@ -128,3 +129,19 @@ def test_non_uniform_time_base_gives_the_same_numbers():
     assert sparse.delay_s == pytest.approx(full.delay_s, abs=20 * DT)
     assert sparse.overshoot_pct == pytest.approx(full.overshoot_pct, abs=0.1)
     assert sparse.ring_hz == pytest.approx(full.ring_hz, rel=0.005)
+
+
+def test_reference_library_agrees_with_the_closed_forms():
+    """scipy.signal.step / lsim (the generators above) against Ogata §5-3's formulas, and the fit
+    models in labtool against both: all three must describe the same responses."""
+    from labtool.measure.fit import first_order_step as fit_first, second_order_step as fit_second
+
+    t = np.linspace(0.0, 60e-6, 3001)
+    zeta, wn, tau = 0.5, 1.0 / T_UNIT, 5e-6
+    s = np.clip(t - 10e-6, 0.0, None)
+    wd = wn * math.sqrt(1 - zeta ** 2)
+    ogata2 = 1 - np.exp(-zeta * wn * s) * (np.cos(wd * s) + zeta / math.sqrt(1 - zeta ** 2) * np.sin(wd * s))
+    np.testing.assert_allclose(second_order_step(t, zeta=zeta, wn=wn, delay_s=10e-6), ogata2, atol=1e-9)
+    np.testing.assert_allclose(first_order_step(t, tau_s=tau, delay_s=10e-6), 1 - np.exp(-s / tau), atol=1e-9)
+    np.testing.assert_allclose(fit_second(t, (0.0, 1.0, 10e-6, zeta, wn)), ogata2, atol=1e-12)
+    np.testing.assert_allclose(fit_first(t, (0.0, 1.0, 10e-6, tau)), 1 - np.exp(-s / tau), atol=1e-12)

@@ -1,0 +1,137 @@
+"""``labtool measure FILE... | CAMPAIGN``: startup metrics and verdicts per capture.
+
+A path that is a campaign directory (it holds ``catalog.sqlite``) is measured in place: every current
+capture, results saved in its catalog under the limits' key (replacing earlier results for the same
+limits). Any other path is read as a capture file and measured without storing anything.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from functools import partial
+from pathlib import Path
+
+from labtool.errors import LabtoolError, MeasurementError
+from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
+from labtool.measure import Limits
+from labtool.measure.batch import measure_campaign, result_row
+from labtool.stats.sources import text_table
+from labtool.store import Campaign
+from labtool.store.campaign import CATALOG_NAME
+from labtool.units import format_si
+
+_LIMIT_FLAGS = {"supply_ref": "supply_ref", "supply_min": "supply_min_v", "expect": "expect_v",
+                "level_tol": "level_tol_pct", "band": "band_pct", "max_delay": "max_delay_s",
+                "max_overshoot": "max_overshoot_pct"}
+_TABLE = (("file", None), ("capture_id", None), ("verdict", None), ("t_supply_s", "s"), ("delay_s", "s"),
+          ("rise_s", "s"), ("settle_s", "s"), ("overshoot_pct", "%"), ("ring_hz", "Hz"), ("damping", ""),
+          ("vout_final_v", "V"), ("vsupply_final_v", "V"), ("ramp_v_per_s", "V/s"), ("supply_at_start_v", "V"))
+
+
+def register(sub) -> None:
+    p = sub.add_parser("measure", help="startup delay, settling, overshoot, ringing and a verdict per capture")
+    p.add_argument("paths", nargs="+", metavar="FILE|CAMPAIGN",
+                   help="capture files (CSV, CSV.gz, XLSX) or a campaign directory")
+    p.add_argument("--supply", metavar="N", help="name of the supply column (files only)")
+    p.add_argument("--output", metavar="N", help="name of the reference-output column (files only)")
+    p.add_argument("--supply-ref", metavar="X", help="supply valid level: percent of its final level (90%%) or volts")
+    p.add_argument("--supply-min", metavar="V", help="no_supply when the supply never reaches this voltage")
+    p.add_argument("--expect", metavar="V", help="expected output level (volts)")
+    p.add_argument("--level-tol", metavar="PCT", help="wrong_level beyond ±PCT %% of --expect (default 5)")
+    p.add_argument("--band", metavar="PCT", help="settling band, ±PCT %% of the final level (default 1)")
+    p.add_argument("--max-delay", metavar="S", help="slow_start above this delay (500e-6 or 500us)")
+    p.add_argument("--max-overshoot", metavar="PCT", help="ringing above this overshoot in %% (default 10)")
+    p.add_argument("--limits", metavar="F", help="TOML limits file; flags override it")
+    p.add_argument("--json", action="store_true", help="one JSON object per capture per line")
+    add_scheduler_option(p)
+    p.set_defaults(handler=run)
+
+
+def _limits(args) -> Limits:
+    base = Limits.from_toml(args.limits) if args.limits else Limits()
+    return base.merged(**{field: getattr(args, flag) for flag, field in _LIMIT_FLAGS.items()})
+
+
+def is_campaign(path: str) -> bool:
+    return (Path(path) / CATALOG_NAME).is_file()
+
+
+def measure_file(options, limits: Limits, path: str) -> list[tuple[str, dict | str]]:
+    """Worker: read one file and measure each of its captures: ("ok", row) or ("error", message)."""
+    from labtool.ingest import read_path
+
+    out = []
+    for capture in read_path(path, options):
+        try:
+            out.append(("ok", {**result_row(capture, limits), "file": path}))
+        except MeasurementError as exc:
+            out.append(("error", str(exc)))
+    return out
+
+
+def _file_rows(paths: list[str], args, limits: Limits, scheduler):
+    """Yield ("ok", row) / ("error", message) for every capture of every file, in input order."""
+    if not paths:
+        return
+    try:
+        from labtool.ingest import IngestOptions
+    except ImportError:
+        for path in paths:
+            yield "error", f"{path}: cannot read capture files (the importers are not installed)"
+        return
+    work = partial(measure_file, IngestOptions(supply=args.supply, output=args.output), limits)
+    for outcome in run_batch(work, paths, scheduler, what="measure", unit="file"):
+        if outcome.ok:
+            yield from outcome.value
+        else:
+            yield "error", outcome.error
+
+
+def _campaign_rows(path: str, limits: Limits, scheduler):
+    with Campaign.open(path) as campaign:
+        report = measure_campaign(campaign, limits, scheduler)
+    for row in report.rows:
+        yield "ok", row
+    for capture_id, message in report.failed:
+        yield "error", f"{path}: capture {capture_id}: {message}"
+    print(f"labtool measure: {path}: {report.measured} capture(s) measured and saved under limits "
+          f"{report.limits_key}" + (f", {len(report.failed)} failed" if report.failed else ""), file=sys.stderr)
+
+
+def _cell(value, unit):
+    if unit is None or value is None:
+        return value
+    if unit == "":
+        return f"{value:.3g}"
+    if unit == "%":
+        return f"{value:.3g} %"
+    return format_si(value, unit)
+
+
+def run(args) -> int:
+    limits = _limits(args)
+    scheduler = parse_scheduler(args.scheduler)
+    files = [p for p in args.paths if not is_campaign(p)]
+    sources = [_campaign_rows(p, limits, scheduler) for p in args.paths if is_campaign(p)]
+    sources.append(_file_rows(files, args, limits, scheduler))
+    failures = 0
+    table = []
+    for source in sources:
+        try:
+            for status, item in source:
+                if status == "error":
+                    failures += 1
+                    print(f"labtool measure: {item}", file=sys.stderr)
+                elif args.json:
+                    print(json.dumps(item, allow_nan=False), flush=True)
+                else:
+                    table.append({name: _cell(item.get(name), unit) for name, unit in _TABLE})
+        except LabtoolError as exc:  # a whole campaign that cannot be opened; the other paths go on
+            failures += 1
+            print(f"labtool measure: {exc}", file=sys.stderr)
+    if table:
+        print(text_table(table, [name for name, _ in _TABLE]))
+    if failures:
+        print(f"labtool measure: {failures} failure(s)", file=sys.stderr)
+    return 1 if failures else 0

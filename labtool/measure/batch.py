@@ -1,0 +1,64 @@
+"""Measure every current capture of a campaign and save the rows in its catalog.
+
+Workers get small catalog records, read their own waveform from the store and send back one row
+each, so no process ever holds more than one waveform per worker. The parent saves all rows in one
+transaction (replacing earlier results under the same limits). A capture that cannot be measured is
+listed in the report; the others are still saved.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import partial
+
+from labtool.errors import LabtoolError, MeasurementError
+from labtool.execute import Scheduler, run_batch
+from labtool.measure.engine import measure_capture
+from labtool.measure.limits import Limits
+from labtool.store import Campaign, load_capture_record
+
+
+@dataclass(frozen=True)
+class MeasureReport:
+    """What a campaign measurement did: rows saved (in catalog order) and captures that failed."""
+
+    limits_key: str
+    rows: list[dict] = field(default_factory=list)
+    failed: list[tuple[str, str]] = field(default_factory=list)  # (capture_id, message)
+
+    @property
+    def measured(self) -> int:
+        return len(self.rows)
+
+
+def result_row(capture, limits: Limits) -> dict:
+    """One measurement row: ``{"capture_id", "file", **result.to_json_dict()}``."""
+    result = measure_capture(capture, limits)
+    return {"capture_id": capture.capture_id, "file": capture.provenance.source_path, **result.to_json_dict()}
+
+
+def measure_record(root: str, limits: Limits, record: dict) -> dict:
+    """Worker: load one capture from the store by its catalog record and measure it."""
+    capture = load_capture_record(root, record)
+    try:
+        return result_row(capture, limits)
+    except LabtoolError:
+        raise
+    except Exception as exc:  # a defect on one capture must not end the batch; it is reported with the capture
+        raise MeasurementError(f"{record['source_path']}: measurement failed ({type(exc).__name__}: {exc})") from None
+
+
+def measure_campaign(campaign: Campaign, limits: Limits = Limits(), scheduler: Scheduler | None = None
+                     ) -> MeasureReport:
+    """Measure every current capture of ``campaign`` and save the rows under ``limits.key()``."""
+    records = campaign.records()
+    work = partial(measure_record, str(campaign.root), limits)
+    report = MeasureReport(limits_key=limits.key())
+    for outcome in run_batch(work, records, scheduler, what="measure", unit="capture"):
+        if outcome.ok:
+            report.rows.append(outcome.value)
+        else:
+            report.failed.append((outcome.item["capture_id"], outcome.error))
+    if report.rows:
+        campaign.save_measurements(report.rows, limits_key=limits.key(), limits_json=limits.to_json())
+    return report
