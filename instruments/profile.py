@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from instruments import scpi
+from instruments.schema import build
 from instruments.session import Session
 from labtool.errors import InstrumentTimeout, ProfileError
 
@@ -237,14 +238,7 @@ def load_profile(name_or_path: str | Path, base: Path | None = None) -> Profile:
 
 
 def _build(cls, values: dict, where: str):
-    known = cls.__dataclass_fields__
-    unknown = [k for k in values if k not in known]
-    if unknown:
-        raise ProfileError(f"{where}: unknown field(s) {', '.join(unknown)} (known: {', '.join(known)})")
-    try:
-        return cls(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in values.items()})
-    except TypeError as exc:
-        raise ProfileError(f"{where}: {exc}") from None
+    return build(cls, values, where, ProfileError)
 
 
 def _operation(name: str, values: dict, where: str) -> Operation:

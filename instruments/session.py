@@ -17,6 +17,7 @@ clear: on a raw socket whose peer has gone, a clear can loop.
 from __future__ import annotations
 
 import re
+import socket
 import time
 from typing import Callable
 
@@ -43,6 +44,15 @@ def resource_manager(backend: str = "@py") -> pyvisa.ResourceManager:
         except (OSError, ValueError, pyvisa.errors.Error) as exc:
             raise InstrumentError(f"VISA backend {backend!r} cannot be loaded: {exc}") from None
     return _managers[backend]
+
+
+def _no_delay(res) -> None:
+    """TCP_NODELAY on a raw socket: without it a command followed by a query waits ~40 ms each time
+    (Nagle's algorithm against the peer's delayed ACK). Only pyvisa-py exposes the socket."""
+    sessions = getattr(res.visalib, "sessions", None)
+    interface = getattr(sessions.get(res.session), "interface", None) if isinstance(sessions, dict) else None
+    if isinstance(interface, socket.socket) and interface.family in (socket.AF_INET, socket.AF_INET6):
+        interface.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
 
 
 def is_raw_socket(resource: str) -> bool:
@@ -93,6 +103,7 @@ class Session:
         res.read_termination = self.read_termination
         res.write_termination = self.write_termination
         self._res = res
+        _no_delay(res)
         reply = self.query("*IDN?")
         self.identity = parse_idn(reply)
         if self.identity_pattern and not re.search(self.identity_pattern, str(self.identity)):

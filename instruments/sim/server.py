@@ -35,7 +35,7 @@ class Device(Protocol):
 class Fault:
     """Misbehave on the ``connection``-th connection (0 first; None every one) when a command matches.
 
-    ``match`` is a regex searched in the command (case-insensitive); ``times`` how often it fires;
+    ``match`` is a regex searched in the program message up to the current command (case-insensitive); ``times`` how often it fires;
     ``delay_s`` for ``late_reply``; ``delta`` bytes added to the length a wrong header announces;
     ``errors`` entries pushed into the error queue for ``error_queue``.
     """
@@ -74,7 +74,7 @@ class ScpiServer:
 
         self._server = Server((LOOPBACK, port), Handler)
         self.port = self._server.server_address[1]
-        self._thread = threading.Thread(target=self._server.serve_forever, name=f"scpi-sim-{self.port}",
+        self._thread = threading.Thread(target=self._server.serve_forever, args=(0.05,), name=f"scpi-sim-{self.port}",
                                         daemon=True)
 
     @property
@@ -107,6 +107,7 @@ class ScpiServer:
             self.connections += 1
         buf = b""
         try:
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)  # small replies at once (no Nagle wait)
             while True:
                 data = sock.recv(65536)
                 if not data:
@@ -132,8 +133,11 @@ class ScpiServer:
         """Handle one program message; False when the connection is to be closed."""
         replies: list[str | bytes] = []
         fault = None
+        done: list[str] = []
         for command in split_message(message):
-            fault = fault or self._fault_for(index, command)
+            done.append(command)
+            # A fault's regex is searched in the message up to this command, so it can name a sequence.
+            fault = fault or self._fault_for(index, ";".join(done))
             if fault is not None and fault.kind == "reset":
                 _reset(sock)
                 return False
