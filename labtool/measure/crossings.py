@@ -18,33 +18,42 @@ import numpy as np
 MIN_DWELL = 3  # samples; a spike of one or two samples is noise (common practice, no source)
 
 
+def _regions(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(start, end) index pairs (end exclusive) of the runs where ``mask`` is True."""
+    edges = np.flatnonzero(mask[1:] != mask[:-1]) + 1
+    bounds = np.concatenate(([0], edges, [mask.size]))
+    first = 0 if mask[0] else 1
+    return bounds[:-1][first::2], bounds[1:][first::2]
+
+
+def _group(starts, ends, high, counts):
+    """Merge neighbouring runs in the same state: first index, last index, state, definite count."""
+    lead = np.flatnonzero(np.concatenate(([True], high[1:] != high[:-1])))
+    tail = np.concatenate((lead[1:] - 1, [high.size - 1]))
+    return starts[lead], ends[tail], high[lead], np.add.reduceat(counts, lead)
+
+
 def _state_runs(v: np.ndarray, lo: float, hi: float, min_dwell: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Runs of the Schmitt-trigger state: (first definite index, last definite index, is_high) per run.
 
-    Runs of fewer than ``min_dwell`` definite samples between two others are dropped (spikes).
+    Runs of fewer than ``min_dwell`` definite samples between two others are dropped (spikes). Works
+    on the regions above ``hi`` and below ``lo`` (few) rather than on every definite sample (many).
     """
-    up = v >= hi
-    definite = np.flatnonzero(up | (v <= lo))
-    if definite.size == 0:
+    up_s, up_e = _regions(v >= hi)
+    down_s, down_e = _regions(v <= lo if lo < hi else v < lo)
+    starts = np.concatenate((up_s, down_s))
+    if starts.size == 0:
         empty = np.empty(0, dtype=np.intp)
         return empty, empty, np.empty(0, dtype=bool)
-    state = up[definite]
-    change = np.flatnonzero(state[1:] != state[:-1]) + 1
-    bounds = np.concatenate(([0], change, [definite.size]))
-    counts = np.diff(bounds)
-    high = state[bounds[:-1]]
+    order = np.argsort(starts, kind="stable")
+    ends = np.concatenate((up_e, down_e))[order]
+    starts = starts[order]
+    high = np.concatenate((np.ones(up_s.size, bool), np.zeros(down_s.size, bool)))[order]
+    first, last, high, counts = _group(starts, ends - 1, high, ends - starts)
     keep = counts >= min_dwell
     keep[0] = True  # the state at the start of the record is what it is, however short
     if not keep.all():
-        bounds_kept = bounds[:-1][keep]
-        high = high[keep]
-        # merge neighbours that are now in the same state
-        new_run = np.concatenate(([True], high[1:] != high[:-1]))
-        starts = bounds_kept[new_run]
-        high = high[new_run]
-        bounds = np.concatenate((starts, [definite.size]))
-    first = definite[bounds[:-1]]
-    last = definite[bounds[1:] - 1]
+        first, last, high, _ = _group(first[keep], last[keep], high[keep], counts[keep])
     return first, last, high
 
 
@@ -114,18 +123,11 @@ def last_entry(t: np.ndarray, v: np.ndarray, centre: float, half_width: float, *
     Excursions outside the band shorter than ``min_dwell`` samples are spikes and do not count.
     Returns ``t[0]`` when the signal never leaves the band, None when it ends outside it.
     """
-    outside = np.abs(v - centre) > half_width
-    edges = np.flatnonzero(np.diff(outside.view(np.int8)))  # index before each change
-    starts = edges[~outside[edges]] + 1  # first outside sample of each run (after the first)
-    ends = edges[outside[edges]]  # last outside sample of each run
-    if outside[0]:
-        starts = np.concatenate(([0], starts))
-    if outside[-1]:
-        ends = np.concatenate((ends, [v.size - 1]))
-    long_runs = np.flatnonzero(ends - starts + 1 >= min_dwell)
+    starts, ends = _regions(np.abs(v - centre) > half_width)
+    long_runs = np.flatnonzero(ends - starts >= min_dwell)
     if long_runs.size == 0:
         return float(t[0])
-    j = int(ends[long_runs[-1]])
+    j = int(ends[long_runs[-1]]) - 1  # last outside sample
     if j == v.size - 1:
         return None
     edge = centre + half_width if v[j] > centre else centre - half_width
