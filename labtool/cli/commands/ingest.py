@@ -1,0 +1,45 @@
+"""``labtool ingest PATH... --into CAMPAIGN``: read CSV/XLSX captures into a campaign store."""
+
+from __future__ import annotations
+
+import sys
+
+from labtool.execute import add_scheduler_option, parse_scheduler
+from labtool.ingest import IngestOptions, ingest_paths, load_manifest
+from labtool.ingest.conditions import compile_name_pattern
+from labtool.store import Campaign
+
+
+def register(sub) -> None:
+    p = sub.add_parser("ingest", help="read CSV / CSV.gz / XLSX captures (files or folders, recursive) into a "
+                                      "campaign store")
+    p.add_argument("paths", nargs="+", metavar="PATH", help="capture files or folders")
+    p.add_argument("--into", required=True, metavar="CAMPAIGN", help="campaign directory (created if missing)")
+    p.add_argument("--name-pattern", metavar="P",
+                   help='conditions from file names, fields in braces: "{lot}_{part}_{temp_c}C.csv"; '
+                        "lot, wafer, die_x, die_y, part, temperature_c (temp_c), ramp_s (ramp), vdd_v, repeat "
+                        "are typed, any other field becomes a tag")
+    p.add_argument("--manifest", metavar="F", help="run sheet (CSV or XLSX): a file column and condition columns")
+    p.add_argument("--supply", metavar="N", help="column holding the supply voltage")
+    p.add_argument("--output", metavar="N", help="column holding the reference output")
+    p.add_argument("--enable", metavar="N", help="column holding the enable signal")
+    p.add_argument("--supply-current", metavar="N", help="column holding the supply current")
+    add_scheduler_option(p)
+    p.set_defaults(handler=run)
+
+
+def run(args) -> int:
+    if args.name_pattern:
+        compile_name_pattern(args.name_pattern)  # a bad pattern is a usage error before any file is read
+    scheduler = parse_scheduler(args.scheduler)
+    manifest = load_manifest(args.manifest) if args.manifest else None
+    options = IngestOptions(name_pattern=args.name_pattern, manifest=manifest, supply=args.supply,
+                            output=args.output, enable=args.enable, supply_current=args.supply_current)
+    with Campaign.open(args.into, create=True) as campaign:
+        report = ingest_paths(args.paths, campaign, options, scheduler,
+                              exclude=[args.manifest] if args.manifest else ())
+    for _, message in report.failed:
+        print(message, file=sys.stderr)
+    print(f"{args.into}: {len(report.added)} added, {len(report.skipped)} skipped, {len(report.failed)} failed "
+          f"({report.files} file{'s' if report.files != 1 else ''} read)")
+    return 1 if report.failed else 0

@@ -1,0 +1,157 @@
+"""CSV and other delimited text exports (optionally gzip-compressed) → one Capture.
+
+The sniffer finds the layout from the head of the file; the numeric body goes to pyarrow's columnar
+CSV parser in one call (no Python loop per row). Only when pyarrow rejects the body does a line scan
+run, to name the first bad line and column.
+"""
+
+from __future__ import annotations
+
+import gzip
+import io
+import re
+import zlib
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.csv as pacsv
+
+from labtool.capture import Capture, sha256_bytes
+from labtool.errors import InputError
+from labtool.ingest.options import IngestOptions
+from labtool.ingest.sniff import (DELIMITER_NAMES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT, TextLayout,
+                                  decode_line, normalise_encoding, sniff, split_fields)
+from labtool.ingest.table import RawTable, build_capture
+
+GZIP_MAGIC = b"\x1f\x8b"
+MAX_UNCOMPRESSED = 2 * 1024**3  # a larger export is split by the user, not swallowed whole
+NUMBER_COMMA = re.compile(r"[-+]?(?:\d+(?:,\d*)?|,\d+)(?:[eE][-+]?\d+)?\Z")
+
+
+def gunzip(data: bytes, path: str) -> bytes:
+    """Decompress every gzip member, refusing more than MAX_UNCOMPRESSED bytes."""
+    out = io.BytesIO()
+    try:
+        with gzip.GzipFile(fileobj=io.BytesIO(data)) as fh:
+            while chunk := fh.read(16 * 1024 * 1024):
+                out.write(chunk)
+                if out.tell() > MAX_UNCOMPRESSED:
+                    raise InputError(path, f"decompresses to more than {MAX_UNCOMPRESSED // 1024**3} GiB")
+    except (OSError, EOFError, zlib.error) as exc:
+        raise InputError(path, f"corrupt gzip data: {exc}") from None
+    return out.getvalue()
+
+
+def _squeeze_blanks(body: bytes) -> bytes:
+    """Whitespace-delimited text → single-space-delimited, so a one-character delimiter parser reads it."""
+    body = re.sub(rb"[ \t]+", b" ", body)
+    body = re.sub(rb" ?(\r\n|\n|\r) ?", rb"\1", body)
+    return body[1:] if body.startswith(b" ") else body
+
+
+def parse_body(data: bytes, layout: TextLayout, path: str) -> list[np.ndarray]:
+    """The numeric columns of the body as float64 arrays (missing values NaN)."""
+    body = data[layout.body_offset:]
+    if layout.delimiter == " ":
+        body = _squeeze_blanks(body)
+    names = [f"c{k}" for k in range(layout.n_fields)]
+    wanted = names[:len(layout.names)]
+    try:
+        table = _arrow_read(body, names, wanted, layout)
+    except (pa.ArrowInvalid, pa.ArrowTypeError) as exc:
+        # Lines of only blanks are empty to a reader but not to pyarrow: drop them and try once more.
+        cleaned = _BLANK_LINE.sub(b"", body)
+        if cleaned == body:
+            raise _locate_problem(body, layout, path, exc) from None
+        try:
+            table = _arrow_read(cleaned, names, wanted, layout)
+        except (pa.ArrowInvalid, pa.ArrowTypeError) as exc2:
+            raise _locate_problem(body, layout, path, exc2) from None
+    return [table.column(n).to_numpy(zero_copy_only=False).astype(np.float64, copy=False) for n in wanted]
+
+
+_BLANK_LINE = re.compile(rb"(?<=[\r\n])[ \t]+(?=[\r\n]|\Z)")
+
+
+def _arrow_read(body: bytes, names: list[str], wanted: list[str], layout: TextLayout) -> pa.Table:
+    return pacsv.read_csv(
+        pa.BufferReader(body),
+        read_options=pacsv.ReadOptions(column_names=names, block_size=4 << 20),
+        parse_options=pacsv.ParseOptions(delimiter=layout.delimiter, ignore_empty_lines=True),
+        convert_options=pacsv.ConvertOptions(
+            column_types={n: pa.float64() for n in wanted}, include_columns=wanted,
+            decimal_point=layout.decimal, null_values=list(NULL_TOKENS), strings_can_be_null=True,
+            quoted_strings_can_be_null=True))
+
+
+def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) -> InputError:
+    """The first line the columnar parser could not take, with its column (error path only)."""
+    number = NUMBER_COMMA if layout.decimal == "," else NUMBER_DOT
+    for line, raw in enumerate(body.splitlines(), start=layout.first_data_line):
+        text = decode_line(raw)
+        if not text.strip():
+            continue
+        fields = split_fields(text, layout.delimiter)
+        if len(fields) != layout.n_fields:
+            return InputError(path, f"{len(fields)} field{'s' if len(fields) != 1 else ''}, expected "
+                                    f"{layout.n_fields} (line cut short or extra delimiter)", line=line)
+        for k, name in enumerate(layout.names):
+            cell = fields[k].strip().strip('"').strip()
+            if cell.lower() in NA_TOKENS or number.match(cell):
+                continue
+            hint = " (this file uses a decimal comma)" if layout.decimal == "," and NUMBER_DOT.match(cell) else ""
+            return InputError(path, f"{cell!r} is not a number{hint}", line=line, field=name)
+    return InputError(path, f"cannot parse the numeric table: {exc}", line=layout.first_data_line)
+
+
+def _row_locator(body: bytes, first_line: int):
+    """Map a data row index to its line number, skipping blank lines like the parser does (lazily)."""
+    cache: list[int] = []
+
+    def line_of(row: int) -> int:
+        if not cache:
+            cache.extend(k for k, raw in enumerate(body.splitlines(), start=first_line) if raw.strip())
+        return cache[row] if row < len(cache) else first_line + row
+
+    return line_of
+
+
+def read_csv(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
+    """One delimited text export (plain or gzip) → a list with its one Capture."""
+    sha = sha256_bytes(data)
+    importer = "csv"
+    if data.startswith(GZIP_MAGIC):
+        data = gunzip(data, path)
+        importer = "csv+gzip"
+    data = normalise_encoding(data, path)
+    layout = sniff(data, path)
+    columns = parse_body(data, layout, path)
+    line_of = _row_locator(data[layout.body_offset:], layout.first_data_line)
+    header_line = layout.header_line or layout.first_data_line
+
+    def place(row: int | None, col: int | None) -> dict:
+        where = {"line": header_line if row is None else line_of(row)}
+        if col is not None:
+            where["field"] = layout.names[col]
+        return where
+
+    preamble_lines = _preamble_lines(data, layout)
+    table = RawTable(
+        source_path=path, importer=importer, names=list(layout.names), units=list(layout.units),
+        columns=columns, place=place, metadata=dict(layout.preamble),
+        metadata_place=lambda key: {"line": preamble_lines.get(key, 1)}, notes=list(layout.notes),
+        layout=f"{DELIMITER_NAMES[layout.delimiter]}-delimited, decimal "
+               f"{'comma' if layout.decimal == ',' else 'point'}, data from line {layout.first_data_line}")
+    return [build_capture(table, sha, options)]
+
+
+def _preamble_lines(data: bytes, layout: TextLayout) -> dict[str, int]:
+    """Line number of each preamble key (for error messages)."""
+    found: dict[str, int] = {}
+    head = data[:layout.body_offset].splitlines()
+    for key in layout.preamble:
+        for k, raw in enumerate(head, start=1):
+            if key in decode_line(raw):
+                found[key] = k
+                break
+    return found

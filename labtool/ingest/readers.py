@@ -1,0 +1,89 @@
+"""One entry point for every capture file: pick the reader by signature, then by extension.
+
+A reader is ``read_<format>(path, data: bytes, options) -> list[Capture]``; register it in READERS.
+After the reader, the conditions the user gave (name pattern, manifest, extra) are layered on top of
+the file's own.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+from labtool.capture import Capture
+from labtool.errors import InputError, LabtoolError
+from labtool.ingest.conditions import conditions_from_name, manifest_conditions
+from labtool.ingest.csv_reader import GZIP_MAGIC, read_csv
+from labtool.ingest.options import IngestOptions
+from labtool.ingest.xlsx_reader import read_xlsx
+
+ZIP_MAGIC = b"PK\x03\x04"
+OLE2_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"  # legacy .xls (and other compound documents)
+
+
+@dataclass(frozen=True)
+class Reader:
+    name: str
+    signatures: tuple[bytes, ...]
+    extensions: tuple[str, ...]
+    read: Callable[[str, bytes, IngestOptions], list[Capture]]
+
+
+READERS = (
+    Reader("xlsx", (ZIP_MAGIC,), (".xlsx", ".xlsm"), read_xlsx),
+    Reader("csv", (GZIP_MAGIC,), (".csv", ".tsv", ".txt", ".dat", ".csv.gz", ".tsv.gz", ".txt.gz", ".dat.gz"),
+           read_csv),
+)
+# What a folder walk picks up.
+CAPTURE_EXTENSIONS = tuple(ext for r in READERS for ext in r.extensions)
+
+
+def choose_reader(path: str, data: bytes) -> Reader:
+    for reader in READERS:
+        if data.startswith(reader.signatures):
+            return reader
+    if data.startswith(OLE2_MAGIC):
+        raise InputError(path, "a legacy .xls workbook (or another binary document): save it as .xlsx or CSV")
+    lowered = path.lower()
+    for reader in READERS:
+        if lowered.endswith(reader.extensions) and reader.name != "csv":
+            raise InputError(path, f"named like a {reader.name.upper()} file but is not one (no zip signature)")
+    return next(r for r in READERS if r.name == "csv")  # any other text: let the sniffer decide
+
+
+def read_path(path: str | os.PathLike, options: IngestOptions = IngestOptions()) -> list[Capture]:
+    """Read one file into its captures (roles assigned, SI units, conditions applied). Raises InputError."""
+    source = Path(path).as_posix() if not isinstance(path, str) else path
+    try:
+        data = Path(source).read_bytes()
+    except IsADirectoryError:
+        raise InputError(source, "is a folder, not a file") from None
+    except OSError as exc:
+        raise InputError(source, f"cannot read: {exc.strerror or exc}") from None
+    reader = choose_reader(source, data)
+    try:
+        captures = reader.read(source, data, options)
+    except LabtoolError:
+        raise
+    except MemoryError:
+        raise InputError(source, "too large to read into memory") from None
+    except Exception as exc:  # an importer library tripped on input we did not foresee: still one line
+        raise InputError(source, f"unreadable as {reader.name} ({type(exc).__name__}: {exc})") from None
+    return [dataclasses.replace(c, conditions=_user_conditions(c, options)) for c in captures]
+
+
+def _user_conditions(capture: Capture, options: IngestOptions):
+    cond = capture.conditions
+    prov = capture.provenance
+    if options.name_pattern:
+        cond = cond.merged(conditions_from_name(prov.source_path, options.name_pattern))
+    if options.manifest:
+        row = manifest_conditions(options.manifest, prov.source_path, prov.locator)
+        if row is not None:
+            cond = cond.merged(row)
+    if options.extra_conditions is not None:
+        cond = cond.merged(options.extra_conditions)
+    return cond

@@ -1,0 +1,323 @@
+"""Find the table inside a text export: preamble, header, units row, delimiter and decimal mark.
+
+Bench scopes and lab scripts write many shapes: key/value preamble lines before the header
+(``Sample Interval,2e-9``, ``# lot: ZR24A``, ``Record Length: 100000``), comma, semicolon, tab or
+whitespace delimiters, a decimal comma, CRLF line ends, a byte-order mark, units in the header
+(``Time [s]``, ``CH1 (mV)``, ``t/ms``, ``vdd_v``) or in a row of their own. The sniffer looks only at
+the head of the file; the numeric body is parsed by a columnar reader (see ``csv_reader``).
+
+:func:`locate_table` works on rows of text cells, so the XLSX reader uses it for sheets too.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from typing import Sequence
+
+from labtool.errors import InputError, UsageError
+from labtool.units import parse_unit
+
+HEAD_BYTES = 256 * 1024
+HEAD_LINES = 2000
+RUN = 4  # consecutive numeric rows that mark the start of the data
+
+# Cells that stand for a missing or non-finite value; pyarrow reads the same set.
+NA_TOKENS = frozenset({"", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "inf", "+inf", "-inf",
+                       "infinity", "+infinity", "-infinity"})
+NULL_TOKENS = ("", "nan", "NaN", "NAN", "-nan", "+nan", "NA", "N/A", "n/a", "na", "null", "NULL", "None", "none")
+
+NUMBER_DOT = re.compile(r"[-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?\Z")
+NUMBER_ANY = re.compile(r"[-+]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][-+]?\d+)?\Z")
+
+# Delimiters tried, in order of preference on a tie; " " means any run of spaces and tabs.
+DELIMITERS = (",", ";", "\t", " ")
+DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace"}
+
+_COMMENT = "#%!*/;"
+_LINE_END = re.compile(rb"\r\n|\n|\r")
+_BRACKET = re.compile(r"^(.*?)\s*[\[(]\s*([^\[\]()]*?)\s*[\])]\s*$")
+_SPICE = re.compile(r"^[vViI]\(.+\)$")
+# Lower-case unit suffixes after an underscore, as lab scripts name columns (t_us, vdd_v, idd_ua).
+_SUFFIX_UNITS = {"s": "s", "ms": "ms", "us": "us", "ns": "ns", "ps": "ps", "v": "V", "mv": "mV",
+                 "uv": "uV", "a": "A", "ma": "mA", "ua": "uA", "na": "nA", "pa": "pA"}
+
+
+def known_unit(text: str) -> tuple[str, float] | None:
+    """(SI base, factor) for a unit labtool knows, else None."""
+    try:
+        return parse_unit(text)
+    except UsageError:
+        return None
+
+
+def split_name_unit(header: str) -> tuple[str, str | None]:
+    """``"CH1 (mV)"`` → ("CH1", "mV"); ``"t/ms"`` → ("t", "ms"); ``"vdd_v"`` → ("vdd", "V")."""
+    h = header.strip().strip('"').strip()
+    m = _BRACKET.match(h)
+    if m and not _SPICE.match(h):
+        name, unit = m.group(1).strip(), m.group(2).strip()
+        return (name or h), (unit or None)
+    if "/" in h:
+        name, _, unit = h.rpartition("/")
+        if name.strip() and known_unit(unit.strip()):
+            return name.strip(), unit.strip()
+    if "_" in h:
+        name, _, suffix = h.rpartition("_")
+        if name and suffix.lower() in _SUFFIX_UNITS:
+            return name, _SUFFIX_UNITS[suffix.lower()]
+    return h, None
+
+
+def strip_unit_brackets(cell: str) -> str:
+    s = cell.strip().strip('"').strip()
+    if len(s) >= 2 and s[0] in "[(" and s[-1] in "])":
+        s = s[1:-1].strip()
+    return s
+
+
+# -- row classification --------------------------------------------------------------------------
+def _width(row: Sequence[str]) -> int:
+    n = len(row)
+    while n and not row[n - 1].strip():
+        n -= 1
+    return n
+
+
+def _clean(cell: str) -> str:
+    return cell.strip().strip('"').strip()
+
+
+def is_data_row(row: Sequence[str], number: re.Pattern) -> bool:
+    """At least one number and otherwise only missing-value tokens."""
+    seen = False
+    for cell in row:
+        c = _clean(cell)
+        if number.match(c):
+            seen = True
+        elif c.lower() not in NA_TOKENS:
+            return False
+    return seen
+
+
+def _is_text_row(row: Sequence[str], number: re.Pattern) -> bool:
+    cells = [_clean(c) for c in row]
+    return any(cells) and not any(number.match(c) for c in cells)
+
+
+def _is_units_row(row: Sequence[str]) -> bool:
+    cells = [strip_unit_brackets(c) for c in row]
+    return any(cells) and all(known_unit(c) for c in cells if c and c != "-")
+
+
+@dataclass(frozen=True)
+class TablePosition:
+    """Where the table starts in a list of rows (indices into that list)."""
+
+    header: int | None
+    units: int | None
+    data: int
+    n_fields: int  # cells per data row as written (a trailing delimiter counts)
+    n_columns: int  # columns that carry names or values
+    n_good: int  # sampled rows after the start that look like data
+
+
+def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT) -> TablePosition | None:
+    """The first run of ``RUN`` numeric rows of one width, and the header/units rows just above it."""
+    nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
+    for pos, i in enumerate(nonblank):
+        n_fields = len(rows[i])
+        window = nonblank[pos:pos + RUN]
+        if all(is_data_row(rows[j], number) and len(rows[j]) == n_fields for j in window):
+            break
+    else:
+        return None
+    n_good = sum(1 for j in nonblank[pos:] if len(rows[j]) == n_fields and is_data_row(rows[j], number))
+    n_columns = max(_width(rows[j]) for j in window)
+
+    def header_like(k: int) -> bool:
+        return len(rows[k]) == n_fields and _is_text_row(rows[k], number)
+
+    above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
+    header = units = None
+    if len(above) == 2 and _is_units_row(rows[above[1]]) and header_like(above[0]) and len(rows[above[1]]) <= n_fields:
+        header, units = above
+    elif above and header_like(above[-1]):
+        header = above[-1]
+    if header is not None:
+        n_columns = max(n_columns, _width(rows[header]))
+    return TablePosition(header, units, i, n_fields, n_columns, n_good)
+
+
+def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition) -> tuple[list[str], list[str | None]]:
+    """Names (units stripped) and unit texts of the table's columns; unnamed columns get ``columnK``."""
+    n = where.n_columns
+    header = list(rows[where.header]) if where.header is not None else []
+    header += [""] * (n - len(header))
+    names, units = [], []
+    for k in range(n):
+        name, unit = split_name_unit(header[k]) if header[k].strip() else ("", None)
+        names.append(name or f"column{k + 1}")
+        units.append(unit)
+    if where.units is not None:
+        row = list(rows[where.units]) + [""] * n
+        for k in range(n):
+            u = strip_unit_brackets(row[k])
+            if u and u != "-":
+                units[k] = u
+    return names, units
+
+
+# -- preamble ------------------------------------------------------------------------------------
+_KEY_VALUE = re.compile(r"^([^:=]+?)\s*[:=]\s*(.+)$")
+
+
+def parse_preamble(lines: Sequence[str], delimiter: str) -> tuple[dict[str, str], list[str]]:
+    """Key/value pairs of the lines above the header, and the lines that are not pairs (notes)."""
+    pairs: dict[str, str] = {}
+    notes: list[str] = []
+    for line in lines:
+        text = line.strip().lstrip(_COMMENT).strip()
+        if not text:
+            continue
+        pair = None
+        if delimiter != " " and delimiter in text:
+            fields = [_clean(f) for f in text.split(delimiter)]
+            rest = [f for f in fields[1:] if f]
+            if fields[0] and rest:
+                pair = fields[0].rstrip(":=").strip(), " ".join(rest)
+        if pair is None:
+            m = _KEY_VALUE.match(text)
+            if m:
+                pair = _clean(m.group(1)), _clean(m.group(2))
+        if pair and pair[0]:
+            pairs[pair[0]] = pair[1]
+        else:
+            notes.append(text)
+    return pairs, notes
+
+
+# -- text files ----------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class TextLayout:
+    """Everything the CSV reader needs to hand the numeric body to a columnar parser."""
+
+    delimiter: str  # ",", ";", "\t" or " " (any run of blanks)
+    decimal: str  # "." or ","
+    names: tuple[str, ...]
+    units: tuple[str | None, ...]
+    header_line: int | None  # 1-based line numbers
+    units_line: int | None
+    first_data_line: int
+    body_offset: int  # byte offset of the first data line
+    n_fields: int
+    preamble: dict
+    notes: tuple[str, ...]
+
+
+def decode_line(raw: bytes) -> str:
+    """UTF-8, else Windows-1252 (common for 'µ' in exports), else Latin-1 (never fails)."""
+    for encoding in ("utf-8", "cp1252"):
+        try:
+            return raw.decode(encoding)
+        except UnicodeDecodeError:
+            continue
+    return raw.decode("latin-1")
+
+
+def normalise_encoding(data: bytes, path: str) -> bytes:
+    """Drop a UTF-8 byte-order mark; re-encode UTF-16 (with its mark) as UTF-8."""
+    if data.startswith(b"\xef\xbb\xbf"):
+        return data[3:]
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return data.decode("utf-16").encode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise InputError(path, f"invalid UTF-16 text at byte {exc.start}") from None
+    return data
+
+
+def split_head(data: bytes) -> list[tuple[int, str]]:
+    """(byte offset, decoded text) of the complete lines in the head of ``data``."""
+    head = data[:HEAD_BYTES]
+    lines: list[tuple[int, str]] = []
+    start = 0
+    for m in _LINE_END.finditer(head):
+        lines.append((start, decode_line(head[start:m.start()])))
+        start = m.end()
+        if len(lines) >= HEAD_LINES:
+            return lines
+    if start < len(head) and len(data) <= HEAD_BYTES:  # the last line, when it is not cut off
+        lines.append((start, decode_line(head[start:])))
+    return lines
+
+
+def split_fields(text: str, delimiter: str) -> list[str]:
+    if delimiter != " ":
+        return text.split(delimiter)
+    tokens: list[str] = []
+    for tok in text.split():  # "Time (s)" stays one header cell
+        if tokens and tok[0] in "[(" and not NUMBER_ANY.match(tok):
+            tokens[-1] += " " + tok
+        else:
+            tokens.append(tok)
+    return tokens
+
+
+def sniff(data: bytes, path: str) -> TextLayout:
+    """Find delimiter, decimal mark, preamble, header and units of a text export (already decoded
+    from gzip and with any byte-order mark removed)."""
+    if not data.strip():
+        raise InputError(path, "empty file")
+    nul = data.find(b"\x00", 0, HEAD_BYTES)
+    if nul >= 0:
+        line = data.count(b"\n", 0, nul) + 1
+        raise InputError(path, "binary data (NUL byte), not a text export", line=line)
+    lines = split_head(data)
+    best = None
+    for rank, delimiter in enumerate(DELIMITERS):
+        rows = [split_fields(text, delimiter) for _, text in lines]
+        where = locate_table(rows, NUMBER_DOT if delimiter == "," else NUMBER_ANY)
+        if where is None:
+            continue
+        score = (where.header is not None, where.n_good, where.n_columns, -rank)
+        if best is None or score > best[0]:
+            best = (score, delimiter, rows, where)
+    if best is None:
+        raise _no_table(path, lines)
+    _, delimiter, rows, where = best
+    names, units = column_names_and_units(rows, where)
+    body_offset = lines[where.data][0]
+    preamble_end = where.header if where.header is not None else where.data
+    pairs, notes = parse_preamble([text for _, text in lines[:preamble_end]], delimiter)
+    decimal = _decimal_mark(data, body_offset, [rows[k] for k in range(where.data, len(rows))], delimiter)
+    return TextLayout(
+        delimiter=delimiter, decimal=decimal, names=tuple(names), units=tuple(units),
+        header_line=None if where.header is None else where.header + 1,
+        units_line=None if where.units is None else where.units + 1,
+        first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
+        preamble=pairs, notes=tuple(notes))
+
+
+def _decimal_mark(data: bytes, body_offset: int, sample: list[list[str]], delimiter: str) -> str:
+    if delimiter == ",":
+        return "."
+    cells = [c for row in sample for c in row if NUMBER_ANY.match(_clean(c))]
+    if any("." in c for c in cells):
+        return "."
+    if any("," in c for c in cells):
+        return ","
+    # Only integers in the head (a supply still at 0): the rest of the body decides.
+    return "," if data.find(b",", body_offset) >= 0 else "."
+
+
+def _no_table(path: str, lines: list[tuple[int, str]]) -> InputError:
+    """Say why no table was found: nothing there, a header without data, or no consistent rows."""
+    numbered = [(k + 1, t) for k, (_, t) in enumerate(lines) if t.strip()]
+    if not numbered:
+        return InputError(path, "empty file")
+    numeric = [k for k, t in numbered if any(is_data_row(split_fields(t, d), NUMBER_ANY) for d in DELIMITERS)]
+    if not numeric:
+        return InputError(path, "header only, no data rows", line=numbered[-1][0])
+    return InputError(path, f"no table: the rows of numbers from here on do not have one field count "
+                            f"for any delimiter (comma, semicolon, tab, spaces)", line=numeric[0])

@@ -1,0 +1,187 @@
+"""XLSX workbooks → one Capture per sheet that holds a capture table.
+
+openpyxl in read-only mode with cached values only: formulas are never evaluated and macros never
+loaded. A sheet named like ``conditions`` gives conditions, either as key/value rows (for every
+capture of the workbook) or as a table with a ``sheet`` column (one row per capture sheet). Key/value
+cells above a sheet's header are that sheet's own conditions, like a CSV preamble.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import io
+import re
+import zipfile
+import zlib
+
+import numpy as np
+import openpyxl
+from openpyxl.utils import get_column_letter
+from openpyxl.utils.exceptions import InvalidFileException
+
+from labtool.capture import Capture, Conditions, sha256_bytes
+from labtool.errors import InputError
+from labtool.ingest.conditions import typed_conditions
+from labtool.ingest.options import IngestOptions
+from labtool.ingest.sniff import HEAD_LINES, column_names_and_units, locate_table, parse_preamble
+from labtool.ingest.table import RawTable, build_capture
+
+CONDITION_SHEETS = frozenset({"conditions", "condition", "setup", "run", "run_info", "info", "meta", "metadata"})
+MAX_CELLS = 20_000_000  # per sheet; a capture sheet never needs more, a hostile one gets a clear no
+_WORKBOOK_ERRORS = (zipfile.BadZipFile, zlib.error, KeyError, ValueError, TypeError, SyntaxError, EOFError,
+                    OSError, InvalidFileException)
+
+
+def open_workbook(data: bytes, path: str):
+    try:
+        return openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True, keep_vba=False,
+                                      keep_links=False)
+    except _WORKBOOK_ERRORS as exc:
+        raise InputError(path, f"not a readable XLSX workbook ({type(exc).__name__}: {exc})") from None
+
+
+def cell_text(value) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, (_dt.datetime, _dt.date, _dt.time)):
+        return value.isoformat()
+    return str(value)
+
+
+def _normal(text: str) -> str:
+    return re.sub(r"[^0-9a-z]+", "_", text.lower()).strip("_")
+
+
+def _cell(title: str, col: int, row: int) -> str:
+    """Sheet!A1 reference for 0-based column and row."""
+    return f"{title}!{get_column_letter(col + 1)}{row + 1}"
+
+
+def _sheet_rows(ws, path: str) -> list[tuple]:
+    rows, cells = [], 0
+    for row in ws.iter_rows(values_only=True):
+        rows.append(row)
+        cells += len(row)
+        if cells > MAX_CELLS:
+            raise InputError(path, f"sheet has more than {MAX_CELLS:,} cells", field=ws.title)
+    while rows and all(v is None for v in rows[-1]):
+        rows.pop()
+    return rows
+
+
+def read_xlsx(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
+    """Every capture sheet of a workbook, each with the workbook's and its own conditions."""
+    sha = sha256_bytes(data)
+    wb = open_workbook(data, path)
+    try:
+        sheets = [(ws.title, _sheet_rows(ws, path)) for ws in wb.worksheets]
+    except _WORKBOOK_ERRORS as exc:
+        raise InputError(path, f"unreadable workbook ({type(exc).__name__}: {exc})") from None
+    finally:
+        wb.close()
+    titles = {title for title, _ in sheets}
+    common, per_sheet = Conditions(), {}
+    for title, rows in sheets:
+        if _normal(title) in CONDITION_SHEETS:
+            c, p = _conditions_sheet(path, title, rows, titles)
+            common = common.merged(c)
+            per_sheet.update(p)
+    tables = []
+    for title, rows in sheets:
+        if _normal(title) in CONDITION_SHEETS:
+            continue
+        table = _capture_table(path, title, rows)
+        if table is not None:
+            table.base_conditions = common
+            table.sheet_conditions = per_sheet.get(title, Conditions())
+            tables.append(table)
+    if not tables:
+        raise InputError(path, "no sheet holds a capture table (a header row above columns of numbers)")
+    return [build_capture(t, sha, options) for t in tables]
+
+
+def _conditions_sheet(path: str, title: str, rows: list[tuple], titles: set[str]):
+    """Key/value rows → conditions for all sheets; a table with a ``sheet`` column → per sheet."""
+    text = [[cell_text(v).strip() for v in row] for row in rows]
+    filled = [(r, cells) for r, cells in enumerate(text) if any(cells)]
+    if not filled:
+        return Conditions(), {}
+    head_row, header = filled[0]
+    lowered = [_normal(c) for c in header]
+    if "sheet" in lowered:
+        sheet_col = lowered.index("sheet")
+        per_sheet = {}
+        for r, cells in filled[1:]:
+            cells = cells + [""] * (len(header) - len(cells))
+            name = cells[sheet_col]
+            if name not in titles:
+                raise InputError(path, f"names sheet {name!r}, which is not in the workbook",
+                                 field=_cell(title, sheet_col, r))
+            pairs = {header[k]: cells[k] for k in range(len(header)) if k != sheet_col and header[k] and cells[k]}
+            cols = {header[k]: k for k in range(len(header))}
+            per_sheet[name] = typed_conditions(pairs, path=path,
+                                               place=lambda key, r=r: {"field": _cell(title, cols[key], r)})
+        return Conditions(), per_sheet
+    pairs, places = {}, {}
+    for r, cells in filled:
+        values = [(k, c) for k, c in enumerate(cells) if c]
+        if len(values) >= 2:
+            pairs[values[0][1]] = values[1][1]
+            places[values[0][1]] = {"field": _cell(title, values[1][0], r)}
+    return typed_conditions(pairs, path=path, place=lambda key: places.get(key, {})), {}
+
+
+def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
+    head = [[cell_text(v) for v in row] for row in rows[:HEAD_LINES]]
+    where = locate_table(head)
+    if where is None:
+        return None
+    end = where.data
+    while end < len(rows) and any(v is not None and str(v).strip() for v in rows[end]):
+        end += 1
+    block = rows[where.data:end]
+    top = where.header if where.header is not None else where.data
+    span = [head[where.header]] if where.header is not None else []
+    span += head[where.data:where.data + 4]
+    first = min((k for row in span for k, c in enumerate(row) if c.strip()), default=0)
+    names, units = column_names_and_units(head, where)
+    names, units = names[first:], units[first:]
+    header_row = top
+
+    def place(row: int | None, col: int | None) -> dict:
+        r = header_row if row is None else where.data + row
+        return {"field": _cell(title, first + (col or 0), r)}
+
+    columns = [_numeric_column(path, title, block, first + k, where.data) for k in range(len(names))]
+    metadata, meta_place = {}, {}
+    for r in range(top):
+        cells = [cell_text(v).strip() for v in rows[r] if cell_text(v).strip()]
+        pairs, _ = parse_preamble(["\t".join(cells)], "\t")
+        for key, value in pairs.items():
+            metadata[key] = value
+            meta_place[key] = {"field": f"{title}!A{r + 1}"}
+    return RawTable(source_path=path, importer="xlsx", names=names, units=units, columns=columns, place=place,
+                    locator=title, metadata=metadata, metadata_place=lambda key: meta_place.get(key, {}),
+                    layout=f"sheet {title!r}, data from row {where.data + 1}")
+
+
+def _numeric_column(path: str, title: str, block: list[tuple], col: int, first_row: int) -> np.ndarray:
+    values = np.array([row[col] if col < len(row) else None for row in block], dtype=object)
+    try:
+        if any(isinstance(v, (bool, _dt.date, _dt.time, _dt.timedelta)) for v in values):
+            raise TypeError
+        return values.astype(np.float64)
+    except (TypeError, ValueError):
+        pass
+    for r, v in enumerate(values):
+        ok = v is None or (isinstance(v, (int, float)) and not isinstance(v, bool))
+        if not ok:
+            try:
+                float(str(v))
+                continue
+            except ValueError:
+                pass
+            raise InputError(path, f"{cell_text(v)!r} is not a number", field=_cell(title, col, first_row + r))
+    raise AssertionError("a column failed to convert but every cell is a number")  # pragma: no cover
