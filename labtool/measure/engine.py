@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from labtool.capture import Capture
 from labtool.errors import MeasurementError
-from labtool.measure.fit import StepFit, fit_step
+from labtool.measure.fit import StepFit, fit_step, json_value
 from labtool.measure.limits import Limits
 from labtool.measure.startup import StartupMetrics, measure_startup
 from labtool.measure.verdict import decide
@@ -42,18 +41,12 @@ class StartupResult:
 
     def to_json_dict(self) -> dict:
         """The result fields by name (None → null in JSON), then ``evidence`` and ``fit``."""
-        out = {name: _plain(getattr(self, name)) for name in RESULT_FIELDS}
-        out["evidence"] = {k: _plain(v) for k, v in self.evidence.items()}
+        out = {name: json_value(getattr(self, name)) for name in RESULT_FIELDS}
+        out["evidence"] = {k: json_value(v) for k, v in self.evidence.items()}
         out["fit"] = self.fit.to_json_dict() if self.fit is not None else None
         return out
 
 
-def _plain(value):
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(value) else None
-    return value
 
 
 def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -156,9 +156,20 @@ class StepFit:
     damping: float | None
 
     def to_json_dict(self) -> dict:
-        return {"order": self.order, "params": dict(zip(self.params.names, self.params.values)),
-                "stderr": dict(zip(self.params.names, self.params.stderr)), "rss_v2": self.rss_v2,
-                "aic": self.aic, "bic": self.bic, "other_bic": self.other_bic, "n_points": self.n_points}
+        names = self.params.names
+        return {"order": self.order, "params": {n: json_value(v) for n, v in zip(names, self.params.values)},
+                "stderr": {n: json_value(e) for n, e in zip(names, self.params.stderr)},
+                "rss_v2": json_value(self.rss_v2), "aic": json_value(self.aic), "bic": json_value(self.bic),
+                "other_bic": json_value(self.other_bic), "n_points": self.n_points}
+
+
+def json_value(value):
+    """A plain Python value for JSON: numpy scalars unwrapped, NaN and infinities as None (null)."""
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    return value
 
 
 def _to_si(fit: FitResult, t0: float, scale: float) -> FitResult:

@@ -126,8 +126,8 @@ def _supply_metrics(t, supply, levels: SignalLevels, limits: Limits):
 
 
 def _zero_threshold(out: SignalLevels, supply_final_v: float, limits: Limits) -> float:
-    if limits.expect_v is not None:
-        return out.initial_v + EXPECT_ZERO_FRACTION * limits.expect_v
+    if limits.expect_v is not None:  # the zero state is 0 V; "below 10 % of --expect" is absolute
+        return EXPECT_ZERO_FRACTION * limits.expect_v
     return out.initial_v + max(ZERO_SIGMAS * out.noise_v, 3.0 * out.step_v, ZERO_FLOOR_OF_SUPPLY * abs(supply_final_v))
 
 
