@@ -125,6 +125,7 @@ class Plan:
     retries: int = 2
     measure_limits: str | None = None
     simulated: bool = False
+    sim_population: str | None = None  # population file for --sim (resolved against the plan's folder)
     tags: Mapping[str, str] = field(default_factory=dict)
 
     @property
@@ -202,10 +203,15 @@ def load_plan(path: str | Path) -> Plan:
     chamber = _build(ChamberSetup, _quantities(doc.get("chamber", {}), f"{where} [chamber]"), f"{where} [chamber]")
     limits = _build(SafetyLimits, _quantities(doc.get("limits", {}), f"{where} [limits]"), f"{where} [limits]")
     run = _table(doc, "run", where, required=False)
+    sim = _table(doc, "sim", where, required=False)
+    population = sim.get("population")
+    if population is not None and not isinstance(population, str):
+        raise PlanError(f"{where} [sim] population: a file path is required")
     plan = Plan(name=name, path=where, sha256=hashlib.sha256(raw).hexdigest(), instruments=instruments,
                 parts=parts, temperatures_c=temps, ramps_s=ramps, repeats=repeats, discharge_s=discharge_s,
                 scope=scope, supply=supply, chamber=chamber, limits=limits, retries=int(run.get("retries", 2)),
                 measure_limits=run.get("measure_limits"),
+                sim_population=str(path.parent / population) if population else None,
                 tags={str(k): str(v) for k, v in _table(doc, "tags", where, required=False).items()})
     check_plan(plan)
     return plan

@@ -44,7 +44,7 @@ ROLE_OPERATIONS: dict[str, tuple[str, ...]] = {
 }
 OPTIONAL_OPERATIONS: dict[str, tuple[str, ...]] = {
     "supply": ("select_part", "output_state", "measure_current"),
-    "scope": (), "smu": (), "chamber": (),
+    "scope": ("force_trigger",), "smu": (), "chamber": (),
 }
 # The smu operations live in the supply table: an SMU is a supply that also measures its current.
 ROLE_TABLE = {"scope": "scope", "supply": "supply", "smu": "supply", "chamber": "chamber"}

@@ -100,7 +100,7 @@ class SimDevice:
                 except CommandFailed as exc:
                     self.push_error(exc.code, f"{exc.text};{command[:40]}")
                     return None
-                except (ValueError, IndexError, KeyError) as exc:  # a sim defect, reported as the device would
+                except Exception as exc:  # noqa: BLE001 - a simulator defect, reported as a device would, not a dead link
                     self.push_error(-300, f"Device-specific error;{type(exc).__name__}: {exc}"[:80])
                     return None
         self.push_error(-113, f"Undefined header;{header[:40]}")
@@ -182,6 +182,8 @@ class SimBench:
         self.scope.trigger(ramp_s, vdd_v, self.chamber.temperature())
 
     def traces(self, t_model: np.ndarray, ramp_s: float, vdd_v: float, temperature_c: float) -> dict[str, np.ndarray]:
+        if vdd_v <= 0:  # nothing powered: the inputs see ground
+            return {"supply": np.zeros_like(t_model), "output": np.zeros_like(t_model)}
         out = self.source(self.slot, t_model, ramp_s=ramp_s, vdd_v=vdd_v, temperature_c=temperature_c)
         return {k: np.where(t_model < 0, 0.0, np.asarray(v, float)) for k, v in out.items()}
 
@@ -220,6 +222,7 @@ class SimScope(TracingDevice):
             (":INITiate:CONTinuous", lambda a, g: None if not bool_arg(a) else self._refuse_continuous()),
             (":INITiate[:IMMediate]", lambda a, g: self._arm()),
             (":ABORt", lambda a, g: self._abort()),
+            ("*TRG", lambda a, g: self._force_trigger()),
             (":STATus:OPERation:CONDition?", lambda a, g: str(8 if self.armed else 0)),
             (":TRACe:PREamble?", lambda a, g: self._preamble(self._trace_channel(a))),
             (":TRACe[:DATA]?", lambda a, g: self._data(self._trace_channel(a))),
@@ -255,6 +258,11 @@ class SimScope(TracingDevice):
     def _abort(self) -> None:
         self.armed = False
         self.done.set()
+
+    def _force_trigger(self) -> None:
+        """*TRG: acquire now whatever the inputs see (the supply's present output, or nothing)."""
+        sup = self.bench.supply
+        self.trigger(sup.ramp_s, sup.voltage_v if sup.output_on else 0.0, self.bench.chamber.temperature())
 
     def _trace_channel(self, args: str) -> int:
         word = args.strip().upper()

@@ -23,6 +23,7 @@ from labtool.errors import PlanError
 
 SCHEMA = "labtool-population"
 SCHEMA_VERSION = 1
+DEFAULT_POPULATION = Path("sample_runs") / "population.toml"  # the demo, from the checkout
 
 
 @dataclass(frozen=True)
