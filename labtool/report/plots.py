@@ -436,9 +436,9 @@ def qq_plot(measured_s, predicted_s, *, title: str) -> Plot:
 
 # ---------------------------------------------------------------------------------------------
 def hypothesis_fields(h) -> dict[str, Any]:
-    """name, score, evidence, next_experiment of a ranked hypothesis (an object or a mapping)."""
+    """name, title, score, evidence, next_experiment of a ranked hypothesis (an object or a mapping)."""
     get = h.get if isinstance(h, Mapping) else lambda k, d=None: getattr(h, k, d)
-    return {k: get(k) for k in ("name", "score", "evidence", "next_experiment")}
+    return {k: get(k) for k in ("name", "title", "score", "evidence", "next_experiment")}
 
 
 def evidence_text(evidence) -> str:
@@ -481,6 +481,9 @@ def triage_sheet(part_traces: Sequence[Trace], lot_envelope: Envelope | None, hy
             handles.append(Line2D([], [], color=vs.colour, marker=vs.marker, markeredgecolor=style.INKS.ink,
                                   label=f"{part_label}: {vs.label}"))
         ax.legend(handles=handles, loc="lower right", fontsize=7.5)
+        if not part_traces:
+            ax.text(0.5, 0.5, "no waveforms available for this part", transform=ax.transAxes, ha="center",
+                    color=style.INKS.slate)
         ax.set_xlabel(f"time from supply valid [{unit}]")
         ax.set_ylabel("reference output [V]")
         ax.set_title(f"Returned part {part_label} against {lot_label}")
@@ -539,25 +542,32 @@ def _captures_table(ax, captures: pd.DataFrame, max_rows: int = _MAX_TABLE_ROWS)
 
 
 def _hypotheses_block(ax, rows: Sequence[Mapping], max_rows: int = 6) -> None:
+    """Hypotheses with a score above zero, best first: a score bar, the title, evidence and next step."""
     ax.set_title("Hypotheses, most likely first", fontsize=10)
-    if not rows:
-        ax.text(0.0, 0.9, "no hypothesis: nothing in this part differs from its lot", fontsize=9,
-                transform=ax.transAxes)
+    shown = [r for r in rows if float(r["score"] or 0.0) > 0][:max_rows]
+    if not shown:
+        ax.text(0.0, 0.95, "no hypothesis scores above zero: nothing in this part's captures differs from its lot",
+                fontsize=9, transform=ax.transAxes, va="top")
         return
-    y = 0.95
-    step = 0.158
-    top = max((float(r["score"] or 0.0) for r in rows), default=1.0) or 1.0
-    for rank, r in enumerate(rows[:max_rows], start=1):
-        score = float(r["score"] or 0.0)
-        ax.add_patch(Rectangle((0.70, y - 0.028), 0.2 * score / top, 0.022, transform=ax.transAxes,
-                               color=style.INKS.accent, alpha=0.8, gid="score"))
-        ax.text(0.0, y, f"{rank}. {r['name']}", transform=ax.transAxes, fontsize=9.5, weight="bold", va="top")
-        ax.text(0.985, y, f"score {score:.2f}", transform=ax.transAxes, fontsize=8, va="top", ha="right",
-                color=style.INKS.slate)
+    top = max(float(r["score"]) for r in shown)
+    line = 0.03  # one 7.5 pt line, in axes fraction of this panel
+    y = 0.97
+    for rank, r in enumerate(shown, start=1):
+        score = float(r["score"])
         body = "evidence: " + evidence_text(r["evidence"])
         if r["next_experiment"]:
             body += "\nnext: " + str(r["next_experiment"])
-        wrapped = "\n".join(textwrap.fill(line, 112) for line in body.splitlines())
-        ax.text(0.02, y - 0.035, wrapped, transform=ax.transAxes, fontsize=7.5, va="top", color=style.INKS.ink,
+        wrapped = "\n".join(textwrap.fill(part, 108) for part in body.splitlines())
+        height = 1.5 * line + line * (wrapped.count("\n") + 1)
+        if y - height < 0 and rank > 1:
+            ax.text(0.0, max(y, 0.0), f"… {len(shown) - rank + 1} more in the HTML report", transform=ax.transAxes,
+                    fontsize=7.5, va="top", color=style.INKS.slate)
+            break
+        ax.add_patch(Rectangle((0.0, y - 0.022), 0.08 * score / top, 0.018, transform=ax.transAxes,
+                               color=style.INKS.accent, alpha=0.85, gid="score"))
+        ax.text(0.09, y, f"{score:.2f}", transform=ax.transAxes, fontsize=8, va="top", color=style.INKS.slate)
+        title = textwrap.shorten(f"{rank}. {r['title'] or r['name']}", 92, placeholder=" …")
+        ax.text(0.14, y, title, transform=ax.transAxes, fontsize=9.5, weight="bold", va="top")
+        ax.text(0.155, y - 1.3 * line, wrapped, transform=ax.transAxes, fontsize=7.5, va="top", color=style.INKS.ink,
                 linespacing=1.25)
-        y -= step
+        y -= height + 0.6 * line

@@ -21,8 +21,8 @@ from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
 from openpyxl.styles import Alignment, Font, PatternFill
 from openpyxl.utils import get_column_letter
 
-from labtool.errors import UsageError
 from labtool.report import style
+from labtool.report.files import write_atomic
 
 # Catalog columns that describe the store's own files, not the capture: left out of the sheets.
 STORE_INTERNAL_COLUMNS = ("tags_json", "metadata_json", "channels_json", "waveform_path", "waveform_sha256")
@@ -151,11 +151,4 @@ def write_workbook(path: str | os.PathLike, measurements: pd.DataFrame, *, summa
     failures = measurements[measurements["verdict"] != "started"] if "verdict" in measurements else measurements
     _write_table(wb, "Failures", failures, [c for c in FAILURE_COLUMNS if c in measurements.columns])
     _key_values(wb, "Limits", [*flatten(about or {}), *flatten(limits or {}, "limits.")])
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.part")
-    try:
-        wb.save(tmp)
-        os.replace(tmp, path)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise UsageError(f"{path}: cannot write the workbook ({exc.strerror or exc})") from None
-    return path
+    return write_atomic(path, wb.save, "workbook")

@@ -5,7 +5,6 @@ import re
 import struct
 from html.parser import HTMLParser
 
-import pandas as pd
 import pytest
 
 from labtool.report import html as report_html

@@ -195,7 +195,8 @@ def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses()
     hypotheses = [{"name": "weak startup current", "score": 0.8, "evidence": {"delay_ratio": 2.5},
                    "next_experiment": "raise the ramp time and repeat"},
                   {"name": "bistable near escape", "score": 0.3, "evidence": ["1 of 2 cycles stuck"],
-                   "next_experiment": ""}]
+                   "next_experiment": ""},
+                  {"name": "never shown", "score": 0.0, "evidence": {}, "next_experiment": ""}]
     captures = pd.DataFrame({"temperature_c": [25.0, -40.0], "ramp_s": [1e-4, 1e-3], "repeat": [1, 1],
                              "verdict": ["slow_start", "stuck_at_zero"], "delay_s": [30e-6, None]})
     plot = plots.triage_sheet(part, envelope(lot), hypotheses, captures, part_label="A/p07", lot_label="A")
@@ -210,7 +211,9 @@ def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses()
     cells = {cell.get_text().get_text() for cell in table.get_celld().values()}
     assert {"slow start", "stuck at zero", "30 µs", "—", "-40 °C", "1 ms"} <= cells
     bars = sorted(_by_gid(fig, Rectangle, "score"), key=lambda r: -r.get_width())
-    assert bars[0].get_width() == pytest.approx(0.2) and bars[1].get_width() == pytest.approx(0.2 * 0.3 / 0.8)
+    assert len(bars) == 2 and bars[0].get_width() == pytest.approx(0.08)
+    assert bars[1].get_width() == pytest.approx(0.08 * 0.3 / 0.8)  # proportional to the score
+    assert not any("never shown" in t for t in texts)  # a zero score is not a hypothesis
 
 
 def test_plots_render_to_png():

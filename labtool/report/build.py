@@ -1,0 +1,413 @@
+"""Write a campaign's report: PNG plots, the workbook and the self-contained HTML page.
+
+The drawing is batch work (one item per group, one per returned part, one for the overview), run
+through :func:`labtool.execute.run_batch`, so ``--scheduler`` spreads it over processes or a Dask
+cluster; workers read waveforms from the campaign path themselves. A group whose plots fail is listed
+in the report and in :attr:`ReportFiles.failed`; the others are still written.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import sqlite3
+import time
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from labtool import __version__
+from labtool.errors import LabtoolError, StoreError, UsageError
+from labtool.execute import Scheduler, run_batch
+from labtool.report import html as report_html
+from labtool.report import plots
+from labtool.report.files import write_atomic
+from labtool.report.traces import Trace, envelope, trace_from_capture
+from labtool.report.workbook import write_workbook
+from labtool.stats.compare import comparison_table, compare, mixed_prediction
+from labtool.stats.lot import lot_statistics, lot_table
+from labtool.stats.table import CAME_UP, groups, parse_keys, part_labels
+from labtool.stats.triage import triage
+from labtool.units import format_si
+
+MAX_OVERLAYS = 4  # ramp conditions drawn per group
+MAX_TRACES = 120  # traces per overlay; failures first, then starts evenly spread
+MAX_HTML_ROWS = 2000
+SETUP = ("ramp_s", "temperature_c")
+RETURNED = "returned"
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    html: Path
+    workbook: Path
+    plots: tuple[Path, ...]
+    failed: tuple[tuple[str, str], ...] = ()  # (what, one-line reason)
+
+
+@dataclass(frozen=True)
+class _Job:
+    """One item of drawing work; everything a worker needs, picklable."""
+
+    kind: str  # "overview", "group" or "part"
+    label: str
+    stem: str
+    out_dir: str
+    rows: pd.DataFrame = field(repr=False)
+    root: str | None = None  # campaign path (or URL) when waveforms can be read
+    records: tuple[dict, ...] = field(default=(), repr=False)  # catalog records of the traces to draw
+    baseline_records: tuple[dict, ...] = field(default=(), repr=False)
+    baseline_rows: pd.DataFrame | None = field(default=None, repr=False)
+    predicted_delays_s: np.ndarray | None = field(default=None, repr=False)
+    predictions: pd.DataFrame | None = field(default=None, repr=False)
+    spec_max_delay_s: float | None = None
+    hypotheses: tuple = ()
+    group_col: str | None = None
+
+
+def slug(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower() or "all"
+
+
+def group_label(key: Mapping[str, Any]) -> str:
+    return " · ".join(f"{k} {'—' if v is None else v}" for k, v in key.items())
+
+
+# -- workers ------------------------------------------------------------------------------------
+def render_job(job: _Job) -> list[tuple[str, str]]:
+    """Draw and save the job's figures; returns (file name, caption) per PNG written."""
+    try:
+        drawn = {"overview": _overview_plots, "group": _group_plots, "part": _part_plots}[job.kind](job)
+    except LabtoolError:
+        raise
+    except Exception as exc:  # a figure that cannot be drawn fails its group, not the report
+        raise LabtoolError(f"{job.label}: could not draw the plots ({type(exc).__name__}: {exc})") from None
+    out, seen = [], Counter()
+    for plot, caption in drawn:
+        seen[plot.name] += 1
+        name = f"{job.stem}-{plot.name}{'' if seen[plot.name] == 1 else f'-{seen[plot.name]}'}.png"
+        png = plot.png()
+        write_atomic(Path(job.out_dir) / name, lambda tmp: tmp.write_bytes(png), "plot")
+        out.append((name, caption))
+    return out
+
+
+def _overview_plots(job: _Job):
+    return [(plots.delay_vs_conditions(job.rows, title="Startup delay against ramp time and temperature",
+                                       group_col=job.group_col, predicted=job.predictions),
+             "Every capture with a delay as a point; per condition the median and p05–p95; stuck captures "
+             "counted along the top" + ("; dashed: the model's median." if job.predictions is not None else "."))]
+
+
+def _group_plots(job: _Job):
+    rows = job.rows
+    out = [(plots.delay_histogram(rows, title=f"{job.label}: startup delay", spec_max_delay_s=job.spec_max_delay_s,
+                                  predicted_delays_s=job.predicted_delays_s),
+            "Startup delay from supply valid (90 % of final output level); failures by verdict beside it.")]
+    for ramp, sub_records, n_total in _overlay_sets(job):
+        traces = _load_traces(job.root, sub_records, rows)
+        if traces:
+            what = "ramp not recorded" if ramp is None else f"ramp {format_si(ramp, 's')}"
+            out.append((plots.waveform_overlay(traces, title=f"{job.label} · {what}",
+                                               note=f"{len(traces)} of {n_total} captures"),
+                        f"Reference output of {len(traces)} captures ({what}), aligned on supply valid: "
+                        "median bold over the p05–p95 band; ▲ supply valid, ● 90 % crossing, ■ settled."))
+    if {"die_x", "die_y"} <= set(rows.columns) and rows[["die_x", "die_y"]].notna().all(axis=1).any():
+        out.append((plots.wafer_map(rows, title=job.label),
+                    "By die position: median startup delay, and the most severe verdict of the die."))
+    if job.predicted_delays_s is not None and len(job.predicted_delays_s):
+        out.append((plots.qq_plot(rows["delay_s"], job.predicted_delays_s, title=f"{job.label}: measured vs model"),
+                    "Quantiles of the measured delays against the model's at the same set-ups."))
+    return out
+
+
+def _part_plots(job: _Job):
+    part = _load_traces(job.root, job.records, job.rows)
+    lot = _load_traces(job.root, job.baseline_records, job.baseline_rows)
+    lot_name = str(job.rows["lot"].iloc[0]) if "lot" in job.rows.columns else "lot"
+    sheet = plots.triage_sheet(part, envelope(lot), job.hypotheses, job.rows, part_label=job.label,
+                               lot_label=f"{lot_name} (n = {len(lot)})")
+    return [(sheet, f"Triage sheet of returned part {job.label}: its traces against its lot at the same "
+                    "set-ups, its captures and the ranked hypotheses.")]
+
+
+def _overlay_sets(job: _Job):
+    """(ramp, records, captures at that ramp) for up to MAX_OVERLAYS ramp conditions."""
+    if job.root is None or not job.records:
+        return []
+    rows = job.rows.set_index("capture_id")
+    by_id = {r["capture_id"]: r for r in job.records}
+    ramps = rows["ramp_s"] if "ramp_s" in rows.columns else pd.Series(np.nan, index=rows.index)
+    values = sorted(set(ramps.dropna())) + ([None] if ramps.isna().any() else [])
+    if len(values) > MAX_OVERLAYS:
+        values = [values[i] for i in np.linspace(0, len(values) - 1, MAX_OVERLAYS).round().astype(int)]
+    out = []
+    for ramp in values:
+        ids = list(ramps.index[ramps.isna()] if ramp is None else ramps.index[ramps == ramp])
+        out.append((ramp, [by_id[i] for i in pick_traces(rows.loc[ids, "verdict"]) if i in by_id], len(ids)))
+    return out
+
+
+def pick_traces(verdicts: pd.Series, limit: int = MAX_TRACES) -> list[str]:
+    """Up to ``limit`` capture ids: every failure first (up to half), then starts evenly spread."""
+    failed = [i for i, v in verdicts.items() if v != "started"][: limit // 2]
+    started = [i for i, v in verdicts.items() if v == "started"]
+    room = limit - len(failed)
+    if len(started) > room:
+        started = [started[i] for i in np.linspace(0, len(started) - 1, room).round().astype(int)]
+    return failed + started
+
+
+def _load_traces(root: str | None, records: Sequence[dict], rows: pd.DataFrame | None) -> list[Trace]:
+    from labtool.store import load_capture_record
+
+    if root is None or rows is None:
+        return []
+    by_id = rows.set_index("capture_id")
+    traces = []
+    for rec in records:
+        try:
+            cap = load_capture_record(root, rec)
+            traces.append(trace_from_capture(cap, {"capture_id": rec["capture_id"],
+                                                   **by_id.loc[rec["capture_id"]].to_dict()}))
+        except LabtoolError:
+            continue  # a missing waveform leaves a gap in the overlay; `labtool verify` names it
+    return traces
+
+
+# -- inputs -------------------------------------------------------------------------------------
+def _open_inputs(campaign) -> tuple[pd.DataFrame, str | None, Any]:
+    """(measurement table, campaign root or None, open Campaign or None)."""
+    if isinstance(campaign, pd.DataFrame):
+        return campaign, None, None
+    from labtool.store import Campaign
+
+    camp = campaign if isinstance(campaign, Campaign) else Campaign.open(campaign)
+    return camp.measurements(), str(camp.root), camp
+
+
+def limits_used(root: str | None, limits_key: str | None) -> dict:
+    """The limits a campaign's measurements were made with, read from its catalog (read-only)."""
+    if root is None or not limits_key:
+        return {}
+    try:
+        uri = Path(root, "catalog.sqlite").resolve().as_uri() + "?mode=ro"
+        with sqlite3.connect(uri, uri=True) as conn:
+            row = conn.execute("SELECT limits_json FROM measurements WHERE limits_key = ? LIMIT 1",
+                               (limits_key,)).fetchone()
+    except sqlite3.Error as exc:
+        raise StoreError(f"{root}: cannot read the measurement limits: {exc}") from None
+    return json.loads(row[0]) if row else {}
+
+
+def _load_design(design):
+    if design is None or not isinstance(design, (str, os.PathLike)):
+        return design
+    from labtool.model import load_design
+
+    return load_design(design)
+
+
+def _returned_parts(table: pd.DataFrame) -> list[str]:
+    """``LOT/PART`` of parts with a capture tagged returned (a tag named so, or a tag value so)."""
+    tag_cols = set()
+    for text in table.get("tags_json", pd.Series(dtype=object)).dropna().unique():
+        tag_cols |= set(json.loads(text))
+    flagged = pd.Series(False, index=table.index)
+    for col in sorted(tag_cols & set(table.columns)):
+        values = table[col].astype("string").str.strip().str.lower()
+        if col.lower() == RETURNED:
+            flagged |= values.isin(["1", "true", "yes", "y", RETURNED]).fillna(False)
+        else:
+            flagged |= (values == RETURNED).fillna(False)
+    labels = part_labels(table)
+    return sorted(set(labels[flagged & (labels != "")]))
+
+
+# -- the report ---------------------------------------------------------------------------------
+def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=None, *,
+                 scheduler: Scheduler | None = None, spec_max_delay_s: float | None = None,
+                 predictions: pd.DataFrame | None = None, model_samples: int = 200, seed: int = 1,
+                 title: str | None = None) -> ReportFiles:
+    """Write ``out_dir/report.html``, ``out_dir/report.xlsx`` and ``out_dir/plots/*.png``.
+
+    ``campaign``: a campaign path, an open Campaign, or a measurement table (then no waveform plots).
+    ``design``: a design file or Design; the model's Monte Carlo at the measured set-ups (``model_samples``
+    per set-up, ``seed``) gives the predicted distributions. ``predictions`` (a predictions table)
+    may be given instead. ``spec_max_delay_s`` defaults to the measurement limits' ``max_delay_s``.
+    """
+    by = parse_keys(by)
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"--out {out}: exists and is not a directory")
+    (out / "plots").mkdir(parents=True, exist_ok=True)
+    table, root, camp = _open_inputs(campaign)
+    try:
+        if table.empty:
+            where = f"{root}: " if root else ""
+            raise UsageError(f"{where}no measurements yet; run `labtool measure` on the campaign first")
+        limits_key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns else None
+        limits = limits_used(root, limits_key)
+        if spec_max_delay_s is None and limits.get("max_delay_s") is not None:
+            spec_max_delay_s = float(limits["max_delay_s"])
+        stats = lot_table(lot_statistics(table, by, spec_max_delay_s))
+        design = _load_design(design)
+        if design is not None and predictions is None:
+            from labtool.stats.predictions import predictions_from_model
+
+            predictions = predictions_from_model(design, table, n=model_samples, seed=seed, scheduler=scheduler)
+        comparisons = comparison_table(compare(table, predictions, by)) if predictions is not None else None
+        returned = _returned_parts(table)
+        jobs = _jobs(table, by, root, camp, out / "plots", predictions, spec_max_delay_s, returned, design)
+    finally:
+        if camp is not None and camp is not campaign:
+            camp.close()
+    outcomes = list(run_batch(render_job, jobs, scheduler, what="report", unit="group"))
+    failed = tuple((o.item.label, o.error) for o in outcomes if not o.ok)
+    drawn = {o.item.label: [(out / "plots" / name, caption) for name, caption in o.value] for o in outcomes if o.ok}
+    about = {"labtool_version": __version__, "generated_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+             "campaign": root or "(measurement table)", "grouped_by": ",".join(by), "limits_key": limits_key,
+             "spec_max_delay_s": spec_max_delay_s, "model": getattr(design, "name", None) if design is not None else None,
+             "model_samples_per_setup": model_samples if design is not None else None, "seed": seed if design is not None else None}
+    workbook = write_workbook(out / "report.xlsx", table, summary=stats, comparison=comparisons, limits=limits,
+                              about=about)
+    sections = _sections(table, by, stats, comparisons, jobs, drawn, failed, about, limits)
+    page = report_html.render_html(title or "Startup report", _subtitle(table, by, about), sections)
+    html_path = out / "report.html"
+    write_atomic(html_path, lambda tmp: tmp.write_text(page, encoding="utf-8"), "HTML report")
+    pngs = tuple(p for items in drawn.values() for p, _ in items)
+    return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
+
+
+def _setup_cells(rows: pd.DataFrame) -> list[tuple]:
+    return [tuple(r) for r in rows[list(SETUP)].itertuples(index=False)]
+
+
+def _predicted_for(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> np.ndarray | None:
+    """The model's delays at this group's set-ups, in the group's mix of set-ups (see stats.compare)."""
+    if predictions is None or not set(SETUP) <= set(rows.columns) or not set(SETUP) <= set(predictions.columns):
+        return None
+    pred_by_cell = {cell: part for cell, part in predictions.groupby(list(SETUP), sort=False)}
+    counts = pd.Series(_setup_cells(rows.dropna(subset=list(SETUP)))).value_counts()
+    measured = {cell: int(n) for cell, n in counts.items() if cell in pred_by_cell}
+    if not measured:
+        return None
+    delays, _ = mixed_prediction(pred_by_cell, measured)
+    return delays
+
+
+def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) -> list[_Job]:
+    common = dict(out_dir=str(plot_dir), root=root, spec_max_delay_s=spec)
+    jobs = [_Job("overview", "Overview", "overview", rows=table, predictions=predictions, group_col=by[0], **common)]
+    for key, rows in groups(table, by, "--by"):
+        label = group_label(key)
+        records = tuple(camp.records(list(rows["capture_id"]))) if camp is not None else ()
+        jobs.append(_Job("group", label, slug(label), rows=rows, records=records,
+                         predicted_delays_s=_predicted_for(rows, predictions), **common))
+    labels = part_labels(table)
+    for part in returned:
+        mine = table[labels == part]
+        lot = table[(labels != part) & (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False)] \
+            if "lot" in table.columns else table[labels != part]
+        same_setup = lot[pd.Series(_setup_cells(lot), index=lot.index).isin(set(_setup_cells(mine)))] \
+            if set(SETUP) <= set(table.columns) else lot
+        baseline = (same_setup if len(same_setup) else lot)
+        baseline = baseline[baseline["verdict"].isin(CAME_UP)]
+        picked = baseline[baseline["capture_id"].isin(pick_traces(baseline.set_index("capture_id")["verdict"]))]
+        report = triage(table, part, design=design)
+        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, hypotheses=report.hypotheses,
+                         records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),
+                         baseline_rows=picked,
+                         baseline_records=tuple(camp.records(list(picked["capture_id"]))) if camp is not None else (),
+                         **common))
+    return jobs
+
+
+# -- HTML sections ------------------------------------------------------------------------------
+SUMMARY_COLUMNS = ("n", "n_parts", "n_started", "n_stuck", "n_slow", "n_ringing", "n_recollapse", "n_wrong_level",
+                   "n_incomplete", "n_no_supply", "stuck_ppm_ucl95", "delay_median_s", "delay_p05_s", "delay_p95_s",
+                   "cpk", "delay_fit_distribution")
+COMPARISON_COLUMNS = ("measured_delay_median_s", "predicted_delay_median_s", "median_ratio", "ks_pvalue", "ad_pvalue",
+                      "measured_p_stuck", "predicted_p_stuck", "stuck_pvalue", "finding")
+FAILURE_COLUMNS = ("capture_id", "lot", "wafer", "part", "temperature_c", "ramp_s", "repeat", "verdict", "delay_s",
+                   "settle_s", "overshoot_pct", "vout_final_v", "source_path")
+
+
+def _columns(frame: pd.DataFrame, by: Sequence[str], wanted: Sequence[str]) -> pd.DataFrame:
+    return frame[[c for c in (*by, *wanted) if c in frame.columns]]
+
+
+def _subtitle(table: pd.DataFrame, by, about) -> str:
+    return (f"{len(table)} captures · grouped by {', '.join(by)} · campaign {about['campaign']} · "
+            f"labtool {about['labtool_version']} · {about['generated_at']}")
+
+
+def _pct(k: int, n: int) -> str:
+    return f"{k} ({100.0 * k / n:.1f} %)" if n else str(k)
+
+
+def _facts(s: Mapping[str, Any]) -> list[tuple[str, str]]:
+    facts = [("captures", str(s["n"])), ("parts", str(s["n_parts"])), ("started", _pct(s["n_started"], s["n"])),
+             ("stuck at zero", _pct(s["n_stuck"], s["n"])),
+             ("stuck, 95 % upper bound", report_html.display("stuck_ppm_ucl95", s["stuck_ppm_ucl95"])),
+             ("median delay", report_html.display("delay_median_s", s["delay_median_s"])),
+             ("delay p05–p95", f"{report_html.display('delay_s', s['delay_p05_s'])} – "
+                               f"{report_html.display('delay_s', s['delay_p95_s'])}")]
+    if s.get("cpk") is not None and pd.notna(s.get("cpk")):
+        facts.append(("Cpk (delay spec)", f"{s['cpk']:.2f}"))
+    if s.get("delay_fit_distribution"):
+        facts.append(("delay law", str(s["delay_fit_distribution"])))
+    outliers = [o for o in str(s.get("outliers") or "").split(",") if o]
+    intermittent = [p for p in str(s.get("intermittent_parts") or "").split(",") if p]
+    facts += [("delay outliers", str(len(outliers))), ("intermittent parts", ", ".join(intermittent) or "none")]
+    return facts
+
+
+def _sections(table, by, stats, comparisons, jobs, drawn, failed, about, limits) -> list[report_html.Section]:
+    def pictures(label):
+        return [report_html.Picture(caption, path.read_bytes(), alt=f"{label}: {caption}")
+                for path, caption in drawn.get(label, [])]
+
+    findings = {}
+    if comparisons is not None:
+        findings = {group_label({k: r[k] for k in by}): r["finding_text"] for _, r in comparisons.iterrows()}
+    verdicts = table["verdict"].value_counts()
+    labels = part_labels(table)
+    overview_facts = [("captures", str(len(table))), ("groups", str(len(stats))),
+                      ("parts", str(labels[labels != ""].nunique()))]
+    overview_facts += [(report_html.display("verdict", v), str(int(n))) for v, n in verdicts.items()]
+    tables = [report_html.Table("Per group (click a column head to sort)", _columns(stats, by, SUMMARY_COLUMNS))]
+    if comparisons is not None:
+        tables.append(report_html.Table("Measured against the model", _columns(comparisons, by, COMPARISON_COLUMNS)))
+    text = ""
+    if failed:
+        text = "Not drawn: " + "; ".join(f"{what}: {why}" for what, why in failed)
+    sections = [report_html.Section("s-overview", "Overview", facts=overview_facts, pictures=pictures("Overview"),
+                                    tables=tables, text=text, nav_group="overview")]
+    stats_by_label = {group_label({k: s[k] for k in by}): s for _, s in stats.iterrows()}
+    for job in (j for j in jobs if j.kind == "group"):
+        s = stats_by_label[job.label]
+        sections.append(report_html.Section(report_html.anchor_for("g " + job.label), job.label, facts=_facts(s),
+                                            finding=findings.get(job.label, ""), pictures=pictures(job.label)))
+    failures = table[table["verdict"] != "started"]
+    shown = _columns(failures, (), FAILURE_COLUMNS).head(MAX_HTML_ROWS)
+    note = f"first {MAX_HTML_ROWS} of {len(failures)}; every one is in report.xlsx" if len(failures) > MAX_HTML_ROWS else ""
+    sections.append(report_html.Section("s-failures", "Failures", tables=[report_html.Table(
+        f"{len(failures)} captures that did not simply start", shown, note=note)], nav_group="overview"))
+    for job in (j for j in jobs if j.kind == "part"):
+        hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.title, "score": h.score, "next experiment": h.next_experiment}
+                            for i, h in enumerate(job.hypotheses)])
+        sections.append(report_html.Section(report_html.anchor_for("p " + job.label), job.label,
+                                            pictures=pictures(job.label), tables=[report_html.Table("Hypotheses", hyp)],
+                                            nav_group="parts"))
+    limit_rows = pd.DataFrame([*((k, v) for k, v in about.items()), *((f"limits.{k}", v) for k, v in limits.items())],
+                              columns=["item", "value"]).astype({"value": object})
+    sections.append(report_html.Section("s-limits", "Limits and version", tables=[report_html.Table(
+        "What this report was made with", limit_rows.assign(value=limit_rows["value"].map(
+            lambda v: "—" if v is None else str(v))))], nav_group="overview"))
+    return sections

@@ -1,0 +1,135 @@
+"""write_report end to end on a small campaign built and measured here (invented traces)."""
+
+import re
+
+import numpy as np
+import pandas as pd
+import pytest
+from openpyxl import load_workbook
+
+from labtool.capture import Conditions
+from labtool.errors import UsageError
+from labtool.measure import Limits
+from labtool.measure.batch import measure_campaign
+from labtool.report.build import pick_traces, write_report
+from labtool.store import Campaign
+from tests.builders import make_capture
+from tests.report.chromium import render_and_check
+
+DT = 0.2e-6
+RAMPS = (20e-6, 200e-6)
+
+
+def _startup(ramp_s: float, delay_s: float | None, seed: int):
+    """Supply 0 → 1.8 V over ramp_s from t = 10 µs; output a first-order rise to 1.2 V starting
+    ``delay_s`` after supply valid (90 %), or stuck at zero; 8-bit-like noise."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(int((ramp_s * 1.5 + 160e-6) / DT)) * DT
+    supply = np.clip((t - 10e-6) / ramp_s, 0, 1) * 1.8
+    out = np.zeros_like(t)
+    if delay_s is not None:
+        t_valid = 10e-6 + 0.9 * ramp_s
+        start = t_valid + delay_s - 2.3 * 3e-6  # 90 % of a τ = 3 µs rise lands at delay_s
+        out = np.where(t > start, 1.2 * (1 - np.exp(-(t - start) / 3e-6)), 0.0)
+    return supply, out + rng.normal(0, 2e-3, t.size)
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory):
+    root = tmp_path_factory.mktemp("camp") / "c"
+    seed = 0
+    with Campaign.open(root, create=True) as camp:
+        for lot in ("ZR24A", "ZR24B"):
+            for p in range(1, 5):
+                for ramp in RAMPS:
+                    seed += 1
+                    part = f"p{p:02d}"
+                    returned = lot == "ZR24A" and p == 4
+                    stuck = returned and ramp == RAMPS[1]
+                    delay = None if stuck else 12e-6 + 1e-6 * p + (3e-6 if lot == "ZR24B" else 0)
+                    tags = {"status": "returned"} if returned else {}
+                    cond = Conditions(lot=lot, wafer="W03", die_x=p, die_y=1 if lot == "ZR24A" else 2, part=part,
+                                      temperature_c=25.0, ramp_s=ramp, repeat=1, tags=tags)
+                    camp.add_capture(make_capture(*_startup(ramp, delay, seed), DT, conditions=cond,
+                                                  source=f"runs/{lot}_{part}_{ramp:g}.csv"))
+        report = measure_campaign(camp, Limits(max_delay_s=50e-6))
+        assert not report.failed
+    return root
+
+
+def test_report_writes_html_workbook_and_plots(campaign, tmp_path):
+    files = write_report(campaign, tmp_path / "out")
+    assert files.failed == ()
+    assert files.html == tmp_path / "out" / "report.html" and files.workbook == tmp_path / "out" / "report.xlsx"
+    names = sorted(p.name for p in files.plots)
+    assert all(p.read_bytes()[:4] == b"\x89PNG" for p in files.plots)
+    assert sorted(p.name for p in (tmp_path / "out" / "plots").glob("*.png")) == names
+    # Per lot: histogram, one overlay per ramp time, wafer map; the overview; the returned part's sheet.
+    for lot in ("zr24a", "zr24b"):
+        assert {f"lot-{lot}-delay_histogram.png", f"lot-{lot}-waveform_overlay.png",
+                f"lot-{lot}-waveform_overlay-2.png", f"lot-{lot}-wafer_map.png"} <= set(names)
+    assert "overview-delay_vs_conditions.png" in names and "part-zr24a-p04-triage.png" in names
+    assert not any("qq" in n for n in names)  # no model, no QQ plot
+
+    page = files.html.read_text(encoding="utf-8")
+    assert len(re.findall(r'<img src="data:image/png;base64,', page)) == len(files.plots)
+    for anchor in ("s-overview", "s-g-lot-zr24a", "s-g-lot-zr24b", "s-failures", "s-p-zr24a-p04", "s-limits"):
+        assert f'id="{anchor}"' in page and f'href="#{anchor}"' in page
+    assert "limits.max_delay_s" in page  # the limits the campaign was measured with
+
+    wb = load_workbook(files.workbook)
+    assert wb.sheetnames == ["Summary", "Measurements", "Failures", "Limits"]
+    assert wb["Measurements"].max_row == 1 + 16
+    assert [c.value for c in wb["Summary"]["A"]][1:] == ["ZR24A", "ZR24B"]
+    failures = [r for r in wb["Failures"].iter_rows(min_row=2, values_only=True)]
+    assert len(failures) == 1 and "stuck_at_zero" in failures[0]
+    limits = {r[0]: r[1] for r in wb["Limits"].iter_rows(min_row=2, values_only=True)}
+    assert limits["limits.max_delay_s"] == pytest.approx(50e-6) and limits["grouped_by"] == "lot"
+
+
+def test_report_renders_in_chromium_with_every_plot_decoded(campaign, tmp_path):
+    files = write_report(campaign, tmp_path / "out")
+    result = render_and_check(files.html.read_text(encoding="utf-8"), tmp_path)
+    assert result["n_images"] == len(files.plots) == result["decoded"]
+    assert all(w > 300 for w in result["widths"])
+
+
+def test_predictions_add_the_model_overlay_qq_plot_and_comparison(campaign, tmp_path):
+    rng = np.random.default_rng(7)
+    pred = pd.DataFrame({"ramp_s": np.repeat(RAMPS, 100), "temperature_c": 25.0,
+                         "delay_s": rng.normal(15e-6, 1.5e-6, 200), "stuck": False})
+    files = write_report(campaign, tmp_path / "out", by="lot", predictions=pred)
+    names = {p.name for p in files.plots}
+    assert {"lot-zr24a-qq.png", "lot-zr24b-qq.png"} <= names
+    wb = load_workbook(files.workbook)
+    assert "Comparison" in wb.sheetnames
+    page = files.html.read_text(encoding="utf-8")
+    assert "Against the model:" in page and "Measured against the model" in page
+
+
+def test_grouping_by_other_keys_and_a_measurement_table_without_waveforms(campaign, tmp_path):
+    with Campaign.open(campaign) as camp:
+        table = camp.measurements()
+    files = write_report(table, tmp_path / "out", by=("lot", "ramp_s"))
+    names = {p.name for p in files.plots}
+    assert "lot-zr24a-ramp-s-2e-05-delay_histogram.png" in names
+    assert not any("overlay" in n for n in names)  # no waveforms in a bare table
+    assert "part-zr24a-p04-triage.png" in names  # the sheet still ranks the hypotheses
+    assert len(load_workbook(files.workbook)["Summary"]["A"]) == 1 + 4
+
+
+def test_clear_errors_for_an_unmeasured_campaign_and_a_bad_out_dir(tmp_path):
+    with Campaign.open(tmp_path / "empty", create=True):
+        pass
+    with pytest.raises(UsageError, match="no measurements yet"):
+        write_report(tmp_path / "empty", tmp_path / "out")
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(UsageError, match="exists and is not a directory"):
+        write_report(tmp_path / "empty", tmp_path / "file")
+
+
+def test_pick_traces_keeps_failures_first_and_spreads_the_starts():
+    verdicts = pd.Series(["started"] * 10 + ["stuck_at_zero"] * 3, index=[f"c{i}" for i in range(13)])
+    picked = pick_traces(verdicts, limit=6)
+    assert picked[:3] == ["c10", "c11", "c12"]
+    assert picked[3:] == ["c0", "c4", "c9"]  # evenly over the ten starts, ends included
