@@ -7,33 +7,40 @@ beside each test as the conditions, not as reference values).
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy import signal
 
 
 def second_order_step(t, *, zeta: float, wn: float, delay_s: float) -> np.ndarray:
     """Unit step response of ωn²/(s² + 2ζωn·s + ωn²), delayed, by scipy.signal.step on the samples."""
-    grid, late = _grid_from_step(t, delay_s)
-    _, response = signal.step(([wn * wn], [1.0, 2 * zeta * wn, wn * wn]), T=grid)
-    return _on_samples(t, delay_s, late, grid, response)
+    return _on_samples(t, delay_s, ("second", zeta, wn))
 
 
 def first_order_step(t, *, tau_s: float, delay_s: float) -> np.ndarray:
     """Unit step response of 1/(τs + 1), delayed, by scipy.signal.lsim with a unit step input."""
-    grid, late = _grid_from_step(t, delay_s)
-    _, response, _ = signal.lsim(([1.0], [tau_s, 1.0]), U=np.ones_like(grid), T=grid)
-    return _on_samples(t, delay_s, late, grid, response)
+    return _on_samples(t, delay_s, ("first", tau_s))
 
 
-def _grid_from_step(t, delay_s):
-    """scipy simulates on a uniform grid that starts at the step; ours is the record's own step size."""
+@functools.lru_cache(maxsize=64)
+def _response(system: tuple, dt: float, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """The response on a uniform grid that starts at the step (scipy simulates from T[0]); cached,
+    because scipy's simulation steps through the grid one sample at a time."""
+    grid = np.arange(n) * dt
+    if system[0] == "second":
+        _, zeta, wn = system
+        _, response = signal.step(([wn * wn], [1.0, 2 * zeta * wn, wn * wn]), T=grid)
+    else:
+        _, response, _ = signal.lsim(([1.0], [system[1], 1.0]), U=np.ones(n), T=grid)
+    return grid, response
+
+
+def _on_samples(t, delay_s, system):
+    """The response at the record's samples (they fall on the grid when the delay is on a sample)."""
     late = t > delay_s
     dt = float(np.median(np.diff(t)))
-    return np.arange(0.0, t[-1] - delay_s + 2 * dt, dt), late
-
-
-def _on_samples(t, delay_s, late, grid, response):
-    """The response at the record's samples (they fall on the grid when the delay is on a sample)."""
+    grid, response = _response(system, dt, int(np.ceil((t[-1] - delay_s) / dt)) + 2)
     y = np.zeros_like(t)
     y[late] = np.interp(t[late] - delay_s, grid, response)
     return y

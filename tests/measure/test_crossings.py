@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from labtool.measure.crossings import crossings, first_crossing, last_entry, value_at
+from labtool.measure.crossings import crossings, first_crossing, last_crossing, last_entry, value_at
 
 
 def test_linear_interpolation_is_exact_on_a_straight_line():
@@ -29,6 +29,9 @@ def test_crossings_of_a_sine_at_the_closed_form_instants():
     np.testing.assert_allclose(rising, (a + np.arange(3)) / f, atol=1e-9)
     np.testing.assert_allclose(falling, (0.5 - a + np.arange(3)) / f, atol=1e-9)
     assert crossings(t, v, 0.5, 0.05, direction="both").size == 6
+    assert first_crossing(t, v, 0.5, 0.05, direction="falling") == pytest.approx((0.5 - a) / f, abs=1e-9)
+    assert last_crossing(t, v, 0.5, 0.05) == pytest.approx((a + 2) / f, abs=1e-9)
+    assert first_crossing(t, v, 1.5, 0.05) is None  # a level never reached
 
 
 def _noisy_step_with_spikes(seed=0):
