@@ -46,7 +46,7 @@ def test_gate_discharge_by_constant_current(demo):
     d = demo.replace(startup_kind="pulldown", amp_bias="fixed", amp_bias_a=0.0, startup_v_off_v=10.0,
                      startup_vdd_min_v=0.0, i_start_a=1e-6)
     ramp = 0.1e-6
-    rec, _ = run_transient(d, ramp_s=ramp, temperature_c=27.0, t_stop_s=4e-6, n_points=40001, record=(GATE,))
+    rec, _ = run_transient(d, ramp_s=ramp, temperature_c=27.0, t_stop_s=4e-6, n_points=4001, record=(GATE,))
     t, vg = rec.t_s, rec.values[0, :, 0]
     after = t > ramp
     cross = lambda level: np.interp(-level, -vg[after], t[after])  # noqa: E731 (vg falls)
