@@ -9,13 +9,11 @@ in docs/predictions-format.md.
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Sequence
-
 import numpy as np
 import pandas as pd
 
 from labtool.errors import InputError, ModelError
-from labtool.execute import Scheduler, run_batch
+from labtool.execute import Scheduler
 
 NUMERIC_CONDITIONS = ("ramp_s", "temperature_c", "vdd_v")
 TEXT_CONDITIONS = ("lot", "wafer")
@@ -79,34 +77,12 @@ def model_conditions(measurements: pd.DataFrame) -> list[tuple[float, float]]:
     return [(float(r), float(t)) for r, t in cells.itertuples(index=False)]
 
 
-def _monte_carlo_one(item) -> pd.DataFrame:
-    from labtool.model import monte_carlo
-
-    design, condition, n, seed = item
-    return monte_carlo(design, conditions=[condition], n=n, seed=seed).samples
-
-
-def monte_carlo_samples(design, conditions: Sequence[tuple[float, float]], n: int, seed: int,
-                        scheduler: Scheduler | None = None) -> pd.DataFrame:
-    """Monte Carlo samples at each (ramp_s, temperature_c), one batch item per condition. The same seed
-    at every condition gives common random numbers. A failed condition is left out and listed in
-    ``.attrs["failed"]``; all failing is an error."""
-    items = [(design, c, n, seed) for c in conditions]
-    frames, failed = [], []
-    for outcome in run_batch(_monte_carlo_one, items, scheduler, what="monte carlo", unit="condition"):
-        if outcome.ok:
-            frames.append(outcome.value)
-        else:
-            failed.append((outcome.item[1], outcome.error))
-    if not frames:
-        raise ModelError(f"Monte Carlo failed at every condition: {failed[0][1]}")
-    samples = pd.concat(frames, ignore_index=True)
-    samples.attrs["failed"] = failed
-    return samples
-
-
 def predictions_from_model(design, measurements: pd.DataFrame, n: int = 200, seed: int = 1,
                            scheduler: Scheduler | None = None) -> pd.DataFrame:
-    """Model predictions at the measured set-ups, in the predictions-table layout (plus the model's
-    own columns, e.g. the sampled parameters)."""
-    return monte_carlo_samples(design, model_conditions(measurements), n, seed, scheduler)
+    """Model predictions at the measured set-ups (the model's Monte Carlo samples: the predictions-table
+    columns ramp_s, temperature_c, delay_s, stuck, plus the model's own, e.g. the sampled parameters).
+    One seed for every set-up: the same simulated parts everywhere (common random numbers)."""
+    from labtool.model import monte_carlo
+
+    return monte_carlo(design, conditions=model_conditions(measurements), n=n, seed=seed,
+                       scheduler=scheduler).samples

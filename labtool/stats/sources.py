@@ -45,3 +45,13 @@ def text_table(records: Iterable[dict], columns: Sequence[str]) -> str:
     lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip()]
     lines += ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]
     return "\n".join(lines)
+
+
+def add_monte_carlo_options(parser, *, samples: int, samples_help: str) -> None:
+    """``--samples N``, ``--seed S`` and ``--scheduler SPEC`` for commands that run the model's Monte Carlo."""
+    from labtool.execute import add_scheduler_option
+
+    parser.add_argument("--samples", type=int, default=samples, metavar="N", help=f"{samples_help} (default {samples})")
+    parser.add_argument("--seed", type=int, default=1,
+                        help="Monte Carlo seed: the same simulated parts at every set-up and step (default 1)")
+    add_scheduler_option(parser)

@@ -93,3 +93,47 @@ def test_triage_json_and_text(campaign, capsys):
 def test_triage_unknown_part(campaign, capsys):
     assert main(["triage", campaign, "--part", "ZR24B/p77"]) == 2
     assert capsys.readouterr().err.strip() == "labtool triage: --part ZR24B/p77: no measured captures of that part"
+
+
+@pytest.fixture(scope="module")
+def design_file(tmp_path_factory):
+    from labtool.model import Design
+    from labtool.stats.calibrate import write_design
+
+    path = tmp_path_factory.mktemp("design") / "zr4410.toml"
+    write_design(Design(name="ZR-4410"), path)
+    return str(path)
+
+
+def test_compare_with_the_model(campaign, design_file, capsys):
+    assert main(["compare", campaign, "--model", design_file, "--samples", "12", "--scheduler", "local:1",
+                 "--by", "lot", "--json"]) == 0
+    recs = _json_lines(capsys)
+    assert [r["lot"] for r in recs] == ["ZR24A", "ZR24B"]
+    assert COMPARE_KEYS <= set(recs[0])
+    assert recs[0]["n_predicted"] == 48 and recs[0]["match_columns"] == ["ramp_s", "temperature_c"]
+
+
+def test_calibrate_writes_a_loadable_design_and_reports_json(tmp_path, design_file, capsys):
+    from labtool.model import load_design
+
+    df = measurement_table(parts=6, ramps=(1e-6,), temps=(27.0,), repeats=1,
+                           delay_s=lambda rng, n: rng.normal(40e-6, 2e-6, n))  # invented lot
+    camp = campaign_from_table(tmp_path / "c", df)
+    out = tmp_path / "cal.toml"
+    assert main(["calibrate", camp, "--model", design_file, "--fit", "c_scale", "--out", str(out),
+                 "--samples", "10", "--predict-samples", "5", "--at", "10ms@-40", "--scheduler", "local:1",
+                 "--json"]) == 0
+    (rec,) = _json_lines(capsys)
+    (p,) = rec["parameters"]
+    assert set(p) == {"name", "initial", "estimate", "ci95_low", "ci95_high", "interval"}
+    assert p["name"] == "c_scale" and p["estimate"] > 1.2  # 40 µs vs the design's ~26 µs at this set-up
+    (pred,) = rec["predictions"]
+    assert (pred["ramp_s"], pred["temperature_c"], pred["n_samples"]) == (0.01, -40.0, 5)
+    assert load_design(out).c_out_f == pytest.approx(p["estimate"] * load_design(design_file).c_out_f)
+    assert out.read_text().startswith("# Calibrated by labtool calibrate")
+
+
+def test_calibrate_bad_fit_name(campaign, design_file, capsys):
+    assert main(["calibrate", campaign, "--model", design_file, "--fit", "nosuch_a"]) == 2
+    assert capsys.readouterr().err.strip().startswith("labtool calibrate: --fit nosuch_a: not a design parameter")

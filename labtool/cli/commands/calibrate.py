@@ -7,9 +7,9 @@ import json
 from pathlib import Path
 
 from labtool.errors import UsageError
-from labtool.execute import add_scheduler_option, parse_scheduler
+from labtool.execute import parse_scheduler
 from labtool.stats.calibrate import CAPACITANCE_SCALE, calibrate, write_design
-from labtool.stats.sources import load_measurements, text_table
+from labtool.stats.sources import add_monte_carlo_options, load_measurements, text_table
 from labtool.stats.table import parse_keys
 from labtool.units import parse_quantity
 
@@ -26,12 +26,10 @@ def register(sub) -> None:
     p.add_argument("--at", metavar="RAMP@TEMP", action="append", default=None,
                    help="set-up to predict stuck ppm at, e.g. 10ms@-40 (repeatable; default: unmeasured "
                         "corners of the design's ramp_times_s × temperatures_c)")
-    p.add_argument("--samples", type=int, default=60, metavar="N",
-                   help="Monte Carlo parts per measured set-up and likelihood evaluation (default 60)")
+    add_monte_carlo_options(p, samples=60, samples_help="Monte Carlo parts per measured set-up and likelihood "
+                                                         "evaluation")
     p.add_argument("--predict-samples", type=int, default=400, metavar="N",
                    help="Monte Carlo parts per predicted set-up (default 400)")
-    p.add_argument("--seed", type=int, default=1, help="Monte Carlo seed, the same parts at every step (default 1)")
-    add_scheduler_option(p)
     p.add_argument("--json", action="store_true", help="the result as one JSON object")
     p.set_defaults(handler=run)
 

@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import sys
-
-from labtool.execute import add_scheduler_option, parse_scheduler
+from labtool.execute import parse_scheduler
 from labtool.stats.compare import compare
 from labtool.stats.predictions import load_predictions, predictions_from_model
-from labtool.stats.sources import json_line, load_measurements, text_table
+from labtool.stats.sources import add_monte_carlo_options, json_line, load_measurements, text_table
 from labtool.stats.table import parse_keys
 
 _COLUMNS = ("n_measured", "n_predicted", "measured_delay_median_s", "predicted_delay_median_s", "ks_pvalue",
@@ -22,31 +20,19 @@ def register(sub) -> None:
     src.add_argument("--predictions", metavar="FILE",
                      help="predictions table, CSV or XLSX (layout: docs/predictions-format.md)")
     p.add_argument("--by", metavar="KEYS", default=None, help="comma-separated columns to group by (default: lot)")
-    p.add_argument("--samples", type=int, default=200, metavar="N",
-                   help="Monte Carlo samples per set-up with --model (default 200)")
-    p.add_argument("--seed", type=int, default=1, help="Monte Carlo seed with --model (default 1)")
-    add_scheduler_option(p)
+    add_monte_carlo_options(p, samples=200, samples_help="Monte Carlo parts per measured set-up with --model")
     p.add_argument("--json", action="store_true", help="one JSON object per group per line")
     p.set_defaults(handler=run)
-
-
-def model_predictions(design_path: str, measurements, samples: int, seed: int, scheduler: str | None):
-    """Monte Carlo predictions at the measured set-ups; conditions that failed are listed on stderr."""
-    from labtool.model import load_design
-
-    pred = predictions_from_model(load_design(design_path), measurements, n=samples, seed=seed,
-                                  scheduler=parse_scheduler(scheduler))
-    for (ramp_s, temperature_c), message in pred.attrs.get("failed", []):
-        print(f"labtool: Monte Carlo at ramp_s={ramp_s:g}, temperature_c={temperature_c:g} failed: {message}",
-              file=sys.stderr)
-    return pred
 
 
 def run(args) -> int:
     by = parse_keys(args.by)
     meas = load_measurements(args.campaign)
     if args.model:
-        pred = model_predictions(args.model, meas, args.samples, args.seed, args.scheduler)
+        from labtool.model import load_design
+
+        pred = predictions_from_model(load_design(args.model), meas, n=args.samples, seed=args.seed,
+                                      scheduler=parse_scheduler(args.scheduler))
     else:
         pred = load_predictions(args.predictions)
     results = compare(meas, pred, by=by)
