@@ -86,9 +86,9 @@ def main() -> None:
         _write_csv(path, t, supply, output)
         size_mb = path.stat().st_size / 1e6
         options = IngestOptions(supply="vdd", output="vref")
-        bare_s, _ = _best(lambda: pacsv.read_csv(path), 3)
-        parse_s, _ = _best(lambda: read_path(str(path), options), 3)
-        total_s, _ = _best(lambda: measure_capture(read_path(str(path), options)[0]), 3)
+        bare_s, _ = _best(lambda: pacsv.read_csv(path), 5)
+        parse_s, _ = _best(lambda: read_path(str(path), options), 5)
+        total_s, _ = _best(lambda: measure_capture(read_path(str(path), options)[0]), 5)
     print(f"CSV {size_mb:.0f} MB: pyarrow.csv.read_csv {bare_s * 1e3:.0f} ms, read_path {parse_s * 1e3:.0f} ms, "
           f"read_path + measure {total_s * 1e3:.0f} ms ({total_s / bare_s:.2f}x bare read)")
 
