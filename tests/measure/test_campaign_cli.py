@@ -104,3 +104,27 @@ def test_readable_table_without_json(campaign, capsys):
     out = capsys.readouterr().out.splitlines()
     assert out[0].split()[:3] == ["file", "capture_id", "verdict"]
     assert "µs" in out[1] and "started" in out[1] and "stuck_at_zero" in out[2]
+
+
+def test_files_are_read_with_explicit_columns_and_measured(tmp_path, capsys):
+    pytest.importorskip("labtool.ingest")
+    cap = _capture("p05", 1.2, 40)
+    path = tmp_path / "ZR24A_p05.csv"
+    t = cap.times()
+    lines = ["t_s,VDDA,BG_OUT"] + [f"{a:.9g},{b:.6g},{c:.6g}" for a, b, c in
+                                    zip(t, cap.channel("supply").values, cap.channel("output").values)]
+    path.write_text("\n".join(lines) + "\n")
+    status = main(["measure", str(path), "--supply", "VDDA", "--output", "BG_OUT", "--json", "--scheduler", "local:1"])
+    (line,) = capsys.readouterr().out.splitlines()
+    row = json.loads(line)
+    assert status == 0 and CONTRACT_KEYS <= set(row) and row["file"] == str(path)
+    assert row["verdict"] == "started"
+    assert row["delay_s"] == pytest.approx(40e-6 + 4e-6 * np.log(10) - 23e-6, rel=0.01)
+
+
+def test_seconds_as_plain_floats_or_with_si_suffix_are_the_same_limits(campaign, capsys):
+    main(["measure", str(campaign), "--max-delay", "500e-6", "--json", "--scheduler", "local:1"])
+    main(["measure", str(campaign), "--max-delay", "500us", "--json", "--scheduler", "local:1"])
+    capsys.readouterr()
+    with Campaign.open(campaign) as camp:
+        assert camp.limits_keys() == [Limits(max_delay_s=500e-6).key()]

@@ -145,3 +145,20 @@ def test_reference_library_agrees_with_the_closed_forms():
     np.testing.assert_allclose(first_order_step(t, tau_s=tau, delay_s=10e-6), 1 - np.exp(-s / tau), atol=1e-9)
     np.testing.assert_allclose(fit_second(t, (0.0, 1.0, 10e-6, zeta, wn)), ogata2, atol=1e-12)
     np.testing.assert_allclose(fit_first(t, (0.0, 1.0, 10e-6, tau)), 1 - np.exp(-s / tau), atol=1e-12)
+
+
+@pytest.mark.parametrize("time_scale,volt_scale", [(1e3, 1.0), (1e-2, 2.5)])
+def test_scaling_time_and_volts_scales_the_results(time_scale, volt_scale):
+    """Property (dimensional analysis): the same record on a slower time axis and in other volts gives
+    proportional instants, inverse frequencies and unchanged percentages and damping."""
+    zeta, wn = 0.4, 5.0 / T_UNIT
+    t, s, o = _record(lambda t: second_order_step(t, zeta=zeta, wn=wn, delay_s=DELAY), bits=12, noise=0.5e-3)
+    base = measure_arrays(t, s, o)
+    scaled = measure_arrays(t * time_scale, s * volt_scale, o * volt_scale)
+    for name in ("t_supply_s", "delay_s", "rise_s", "settle_s"):
+        assert getattr(scaled, name) == pytest.approx(getattr(base, name) * time_scale, rel=1e-6)
+    assert scaled.ring_hz == pytest.approx(base.ring_hz / time_scale, rel=1e-5)
+    assert scaled.overshoot_pct == pytest.approx(base.overshoot_pct, rel=1e-6)
+    assert scaled.damping == pytest.approx(base.damping, rel=1e-5)
+    assert scaled.vout_final_v == pytest.approx(base.vout_final_v * volt_scale, rel=1e-9)
+    assert scaled.ramp_v_per_s == pytest.approx(base.ramp_v_per_s * volt_scale / time_scale, rel=1e-6)
