@@ -136,6 +136,8 @@ def _read(session: Session, profile: Profile, pre, data, params) -> str:
 
 
 def _hold(session: Session, ops) -> str:
+    if "read_temperature" not in ops:
+        raise InstrumentError("needs read_temperature to know the present temperature; not set")
     reading = ops["read_temperature"].run(session)
     ops["set_point"].run(session, temperature_c=round(reading, 1))
     return f"set point {round(reading, 1):g} °C (the present reading)"

@@ -77,6 +77,7 @@ class Session:
         self.name = name or resource
         self.identity: Identity | None = None
         self.reopen_count = 0
+        self._explaining = False
         self._res = None
 
     # -- lifecycle -------------------------------------------------------------------------
@@ -140,10 +141,9 @@ class Session:
 
     def query(self, command: str, *, timeout_s: float | None = None) -> str:
         """Send a query and read its text reply; ``timeout_s`` overrides the timeout for this reply."""
-        if timeout_s is None:
-            return self._call(command, lambda res: res.query(command))
-
-        def slow_query(res):
+        def ask(res):
+            if timeout_s is None:
+                return res.query(command)
             res.timeout = timeout_s * 1000
             try:
                 return res.query(command)
@@ -151,7 +151,25 @@ class Session:
                 if self._res is res:
                     res.timeout = self.timeout_s * 1000
 
-        return self._call(command, slow_query)
+        try:
+            return self._call(command, ask)
+        except InstrumentTimeout as exc:
+            raise self._explained(exc, command) from None
+
+    def _explained(self, exc: InstrumentTimeout, command: str) -> InstrumentTimeout:
+        """A query the instrument rejects gets no reply at all; its error queue says why."""
+        if self._explaining or command == self.error_query:
+            return exc
+        self._explaining = True
+        try:
+            err = errors_to_exception(self.drain_errors(), command)
+        except InstrumentError:
+            return exc  # the link is gone too: the timeout is the whole story
+        finally:
+            self._explaining = False
+        if err is None:
+            return exc
+        return InstrumentTimeout(f"{exc.message}; its error queue then held {err.code},\"{err.text}\"")
 
     def read_block(self, command: str, *, expected_bytes: int | None = None, max_bytes: int = DEFAULT_MAX_BYTES,
                    deadline_s: float | None = None, trailer: bytes = b"\n") -> Block:

@@ -179,7 +179,11 @@ class SimBench:
 
     def power_on(self, ramp_s: float, vdd_v: float) -> None:
         self.power_cycles += 1
-        self.scope.trigger(ramp_s, vdd_v, self.chamber.temperature())
+        if self.scope.armed:
+            self.scope.trigger(ramp_s, vdd_v, self.chamber.temperature())  # records the current on its grid
+        else:  # nobody watching: the supply still records its own current over 3 ramps + 200 µs
+            t = np.linspace(0.0, 3 * ramp_s + 200e-6, 1000)
+            self.supply.last_current = (t, self.traces(t, ramp_s, vdd_v, self.chamber.temperature()).get("supply_current"))
 
     def traces(self, t_model: np.ndarray, ramp_s: float, vdd_v: float, temperature_c: float) -> dict[str, np.ndarray]:
         if vdd_v <= 0:  # nothing powered: the inputs see ground

@@ -1,0 +1,108 @@
+"""Profiles, SCPI header forms, preamble scaling, error-queue overflow, chamber soak, bench check."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from instruments.chamber import Chamber
+from instruments.check import check_profile
+from instruments.profile import load_profile
+from instruments.sim.headers import match
+from instruments.waveform import Preamble, decode
+from labtool.errors import BlockError, InstrumentTimeout, ProfileError, ScpiError
+
+
+def test_generic_profile_serves_every_role(profile):
+    assert profile.roles() == ["scope", "supply", "smu", "chamber"]
+    assert profile.operation("scope", "configure_timebase").parameters == ("record_s", "points", "pretrigger_s")
+    assert profile.operation("supply", "set_ovp").render({"channel": 1, "ovp_v": 2.0}) == \
+        ":SOURce1:VOLTage:PROTection:LEVel 2"
+
+
+@pytest.mark.parametrize("edit, message", [
+    (('version = 1', 'version = 7'), r"\[version\]: this labtool reads profile version 1, got 7"),
+    (('reply = "preamble"', 'reply = "table"'), r"\[scope.read_preamble\] reply: 'table' is not one of"),
+    (('format = "int16be"', 'format = "int12"'), r"\[scope.read_data\] format: 'int12'"),
+    (('sync = "opc"\ntimeout_s = 20.0', 'sync = "poll"'), r"\[scope.wait_complete\]: sync = \"poll\" needs poll_query"),
+    (('timeout_s = 5.0', 'timeout_s = "soon"'), r"\[transport\] timeout_s: 'soon' is not a number"),
+    (('timeout_s = 5.0', 'timout_s = 5.0'), r"\[transport\]: unknown field\(s\) timout_s"),
+])
+def test_bad_profiles_name_file_and_field(tmp_path, profile, edit, message):
+    text = open(profile.path, encoding="utf-8").read()
+    assert edit[0] in text
+    bad = tmp_path / "bad.toml"
+    bad.write_text(text.replace(edit[0], edit[1], 1))
+    with pytest.raises(ProfileError, match=message):
+        load_profile(bad)
+
+
+def test_unknown_profile_name():
+    with pytest.raises(ProfileError, match="no such profile file"):
+        load_profile("no-such-profile")
+
+
+@pytest.mark.parametrize("header, ok", [
+    # SCPI-1999 Vol. 1 §6.2.1: short form (upper-case letters) or long form, any case; optional nodes.
+    ("SOUR1:VOLT", True), ("source1:voltage:level:immediate:amplitude", True), (":SOUR:VOLT:LEV", True),
+    ("SOURC:VOLT", False), ("SOUR1:VOLTA", False),
+])
+def test_scpi_short_and_long_forms(header, ok):
+    assert bool(match(":SOURce#:VOLTage[:LEVel][:IMMediate][:AMPLitude]", header)) is ok
+
+
+def test_preamble_scaling_formula():
+    # value = (code − y_ref)·y_inc + y_origin; time = (i − x_ref)·x_inc + x_origin (common practice, no source).
+    p = Preamble(points=4, x_increment_s=1e-6, x_origin_s=-2e-6, x_reference=1.0, y_increment=0.01,
+                 y_origin=0.5, y_reference=128.0)
+    values, clipped = decode(bytes([0, 128, 200, 255]), "uint8", p)
+    assert np.allclose(values, [(0 - 128) * 0.01 + 0.5, 0.5, (200 - 128) * 0.01 + 0.5, (255 - 128) * 0.01 + 0.5])
+    assert clipped.tolist() == [True, False, False, True]
+    assert np.allclose(p.times(), [-3e-6, -2e-6, -1e-6, 0.0])
+    with pytest.raises(BlockError, match="3 data bytes, but 4 points of 1 byte"):
+        decode(bytes(3), "uint8", p)
+
+
+def test_error_queue_overflow_reported(bench, sessions):
+    # SCPI-1999: a full queue replaces its newest entry by -350 "Queue overflow".
+    for _ in range(12):
+        sessions["supply"].write(":SOUR1:VOLT 99")
+    with pytest.raises(ScpiError) as info:
+        sessions["supply"].check_errors(":SOUR1:VOLT 99")
+    assert info.value.code == -222
+    assert [e.code for e in info.value.entries][-1] == -350
+    assert "overflowed" in str(info.value)
+
+
+def test_chamber_soaks_then_times_out(bench, sessions, profile):
+    chamber = Chamber(sessions["chamber"], profile)
+    result = chamber.settle(30.0, tolerance_c=0.5, soak_s=0.1, timeout_s=5.0)
+    assert abs(result.temperature_c - 30.0) <= 0.5 and result.waited_s >= 0.1
+    with pytest.raises(InstrumentTimeout, match=r"did not hold 100 ±0.1 °C for 10 s within 0.3 s"):
+        chamber.settle(100.0, tolerance_c=0.1, soak_s=10.0, timeout_s=0.3)
+
+
+def test_bench_check_reports_every_operation(bench, profile):
+    results = {(r.role, r.operation): r for role, server in bench.servers.items()
+               for r in check_profile(server.resource, profile, roles=[role])}
+    assert all(r.status in ("ok", "skipped") for r in results.values()), \
+        [r for r in results.values() if r.status not in ("ok", "skipped")]
+    assert results[("scope", "read_preamble+read_data")].detail.startswith("1000 points, 2000 bytes")
+    assert results[("supply", "output_state")].detail == "True"
+    assert results[("supply", "select_part")].status == "skipped"
+    assert bench.supply.output_on is False  # the check leaves the output off
+
+
+def test_bench_check_names_what_failed(bench, profile, tmp_path):
+    text = open(profile.path, encoding="utf-8").read().replace(":OUTPut{channel}:STATe?", ":OUTPut{channel}:STATus?")
+    text = text.replace('[chamber.read_temperature]', '[chamber.read_temperature_unused]')
+    text = text.replace("timeout_s = 5.0", "timeout_s = 0.5")  # a rejected query gets no reply: keep it short
+    path = tmp_path / "p.toml"
+    path.write_text(text)
+    results = check_profile(bench.servers["supply"].resource, load_profile(path), roles=["supply", "chamber"])
+    by_op = {r.operation: r for r in results}
+    # The rejected query times out; the message carries the instrument's own reason from its queue.
+    assert by_op["output_state"].status == "failed"
+    assert "no reply to ':OUTPut1:STATus?'" in by_op["output_state"].detail
+    assert '-113,"Undefined header' in by_op["output_state"].detail
+    assert by_op["read_temperature"].status == "absent"
