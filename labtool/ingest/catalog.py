@@ -48,12 +48,13 @@ def export_table(campaign: Campaign) -> pd.DataFrame:
     df = campaign.captures()
     if df.empty:
         return df
+    catalog_columns = set(df.columns)
     df = df.copy()
     df["channels"] = [",".join(f"{c['name']}:{c['role']}" for c in json.loads(s)) for s in df["channels_json"]]
     df = df.drop(columns=[c for c in _INTERNAL if c in df.columns])
     measured = campaign.measurements()
     if not measured.empty:
-        extra = [c for c in measured.columns if c not in df.columns or c == "capture_id"]
+        extra = ["capture_id"] + [c for c in measured.columns if c not in catalog_columns]
         df = df.merge(measured[extra], on="capture_id", how="left")
     for col in df.columns:
         if df[col].dtype == object and df[col].map(lambda v: isinstance(v, (dict, list, tuple))).any():

@@ -50,7 +50,7 @@ def choose_reader(path: str, data: bytes) -> Reader:
     lowered = path.lower()
     for reader in READERS:
         if lowered.endswith(reader.extensions) and reader.name != "csv":
-            raise InputError(path, f"named like a {reader.name.upper()} file but is not one (no zip signature)")
+            raise InputError(path, f"named like an {reader.name.upper()} workbook but is not one (no zip signature)")
     return next(r for r in READERS if r.name == "csv")  # any other text: let the sniffer decide
 
 

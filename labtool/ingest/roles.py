@@ -63,10 +63,15 @@ def _find(names: Sequence[str], wanted: str) -> int | None:
     return None
 
 
-def assign_roles(names: Sequence[str], picks: dict[str, str], *, path: str, place: dict | None = None) -> list[str]:
-    """One role per column name; ``picks`` maps role → column name given by the user."""
+def assign_roles(names: Sequence[str], picks: dict[str, str], *, path: str, place: dict | None = None,
+                 all_columns: Sequence[str] | None = None) -> list[str]:
+    """One role per column name; ``picks`` maps role → column name given by the user.
+
+    ``all_columns`` (the time column too) is what error messages list; default ``names``.
+    """
     place = place or {}
-    listing = ", ".join(names) if names else "none"
+    shown = list(all_columns if all_columns is not None else names)
+    listing = ", ".join(shown) if shown else "none"
     roles = ["other"] * len(names)
     for role, wanted in picks.items():
         k = _find(names, wanted)

@@ -12,6 +12,7 @@ the head of the file; the numeric body is parsed by a columnar reader (see ``csv
 from __future__ import annotations
 
 import re
+from collections import Counter
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -20,7 +21,7 @@ from labtool.units import parse_unit
 
 HEAD_BYTES = 256 * 1024
 HEAD_LINES = 2000
-RUN = 4  # consecutive numeric rows that mark the start of the data
+SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
 
 # Cells that stand for a missing or non-finite value; pyarrow reads the same set.
 NA_TOKENS = frozenset({"", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "inf", "+inf", "-inf",
@@ -122,18 +123,42 @@ class TablePosition:
     n_good: int  # sampled rows after the start that look like data
 
 
+def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
+    """Mostly numbers: a data row, or one with a few bad cells that the parser will point at."""
+    cells = [_clean(c) for c in row]
+    numbers = sum(1 for c in cells if number.match(c))
+    texts = sum(1 for c in cells if not number.match(c) and c.lower() not in NA_TOKENS)
+    return numbers >= 1 and numbers >= texts
+
+
 def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT) -> TablePosition | None:
-    """The first run of ``RUN`` numeric rows of one width, and the header/units rows just above it."""
+    """Where the data starts, and the header/units rows just above it.
+
+    The field count is the most common one among mostly-numeric rows (ties: the earliest row's), so
+    a bad cell or a cut-off line later in the data does not move the start. The data starts at the
+    first all-numeric row of that count followed by a mostly-numeric row (or by nothing).
+    """
     nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
-    for pos, i in enumerate(nonblank):
-        n_fields = len(rows[i])
-        window = nonblank[pos:pos + RUN]
-        if all(is_data_row(rows[j], number) and len(rows[j]) == n_fields for j in window):
-            break
-    else:
+    numeric = [i for i in nonblank if _numericish(rows[i], number)]
+    if not numeric:
         return None
-    n_good = sum(1 for j in nonblank[pos:] if len(rows[j]) == n_fields and is_data_row(rows[j], number))
-    n_columns = max(_width(rows[j]) for j in window)
+    counts = Counter(len(rows[i]) for i in numeric)
+    top = max(counts.values())
+    n_fields = next(len(rows[i]) for i in numeric if counts[len(rows[i])] == top)
+    numeric_set = set(numeric)
+    pos = None
+    for p, i in enumerate(nonblank):
+        if len(rows[i]) == n_fields and is_data_row(rows[i], number):
+            following = nonblank[p + 1] if p + 1 < len(nonblank) else None
+            if following is None or following in numeric_set:
+                pos = p
+                break
+    if pos is None:
+        return None
+    i = nonblank[pos]
+    after = nonblank[pos:]
+    n_good = sum(1 for j in after if len(rows[j]) == n_fields and is_data_row(rows[j], number))
+    n_columns = max(_width(rows[j]) for j in after[:SAMPLE_ROWS] if len(rows[j]) == n_fields)
 
     def header_like(k: int) -> bool:
         return len(rows[k]) == n_fields and _is_text_row(rows[k], number)
@@ -303,21 +328,22 @@ def _decimal_mark(data: bytes, body_offset: int, sample: list[list[str]], delimi
     if delimiter == ",":
         return "."
     cells = [c for row in sample for c in row if NUMBER_ANY.match(_clean(c))]
-    if any("." in c for c in cells):
-        return "."
-    if any("," in c for c in cells):
-        return ","
+    dots, commas = sum("." in c for c in cells), sum("," in c for c in cells)
+    if dots or commas:  # the majority; the parser then names the first cell written the other way
+        return "," if commas > dots else "."
     # Only integers in the head (a supply still at 0): the rest of the body decides.
     return "," if data.find(b",", body_offset) >= 0 else "."
 
 
 def _no_table(path: str, lines: list[tuple[int, str]]) -> InputError:
-    """Say why no table was found: nothing there, a header without data, or no consistent rows."""
+    """Say why no table was found: nothing there, a header without data, text only, or no clean rows."""
     numbered = [(k + 1, t) for k, (_, t) in enumerate(lines) if t.strip()]
     if not numbered:
         return InputError(path, "empty file")
-    numeric = [k for k, t in numbered if any(is_data_row(split_fields(t, d), NUMBER_ANY) for d in DELIMITERS)]
+    numeric = [k for k, t in numbered if any(_numericish(split_fields(t, d), NUMBER_ANY) for d in DELIMITERS)]
     if not numeric:
-        return InputError(path, "header only, no data rows", line=numbered[-1][0])
-    return InputError(path, f"no table: the rows of numbers from here on do not have one field count "
-                            f"for any delimiter (comma, semicolon, tab, spaces)", line=numeric[0])
+        if len(numbered) == 1:
+            return InputError(path, "header only, no data rows", line=numbered[0][0])
+        return InputError(path, "no data rows: no line holds numbers")
+    return InputError(path, "no table: no line of only numbers (separated by comma, semicolon, tab or "
+                            "spaces) starts the data", line=numeric[0])

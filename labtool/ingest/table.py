@@ -194,7 +194,7 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
 
     channel_cols = [k for k in range(len(table.names)) if k not in (t_col, index_col)]
     roles = assign_roles([table.names[k] for k in channel_cols], options.picks(), path=path,
-                         place=table.place(None, None))
+                         place=table.place(None, None), all_columns=table.names)
     channels = []
     for k, role in zip(channel_cols, roles):
         want = ROLE_UNITS.get(role)

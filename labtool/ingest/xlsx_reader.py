@@ -26,7 +26,7 @@ from labtool.ingest.options import IngestOptions
 from labtool.ingest.sniff import HEAD_LINES, column_names_and_units, locate_table, parse_preamble
 from labtool.ingest.table import RawTable, build_capture
 
-CONDITION_SHEETS = frozenset({"conditions", "condition", "setup", "run", "run_info", "info", "meta", "metadata"})
+CONDITION_SHEETS = frozenset({"conditions", "condition", "run_conditions", "setup", "run_info", "metadata"})
 MAX_CELLS = 20_000_000  # per sheet; a capture sheet never needs more, a hostile one gets a clear no
 _WORKBOOK_ERRORS = (zipfile.BadZipFile, zlib.error, KeyError, ValueError, TypeError, SyntaxError, EOFError,
                     OSError, InvalidFileException)
@@ -157,11 +157,11 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
     columns = [_numeric_column(path, title, block, first + k, where.data) for k in range(len(names))]
     metadata, meta_place = {}, {}
     for r in range(top):
-        cells = [cell_text(v).strip() for v in rows[r] if cell_text(v).strip()]
-        pairs, _ = parse_preamble(["\t".join(cells)], "\t")
+        cells = [(k, cell_text(v).strip()) for k, v in enumerate(rows[r]) if cell_text(v).strip()]
+        pairs, _ = parse_preamble(["\t".join(c for _, c in cells)], "\t")
         for key, value in pairs.items():
             metadata[key] = value
-            meta_place[key] = {"field": f"{title}!A{r + 1}"}
+            meta_place[key] = {"field": _cell(title, cells[1][0] if len(cells) > 1 else cells[0][0], r)}
     return RawTable(source_path=path, importer="xlsx", names=names, units=units, columns=columns, place=place,
                     locator=title, metadata=metadata, metadata_place=lambda key: meta_place.get(key, {}),
                     layout=f"sheet {title!r}, data from row {where.data + 1}")

@@ -73,3 +73,17 @@ def startup_arrays(n: int = 50, dt_s: float = 1e-6, seed: int = 0):
     vdd = np.clip(t / 20e-6, 0, 1) * 1.8 + rng.normal(0, 1e-3, n)
     vref = 1.2 * (1 - np.exp(-np.clip(t - 10e-6, 0, None) / 5e-6)) + rng.normal(0, 1e-3, n)
     return t, vdd, vref
+
+
+def write_workbook(path, sheets: dict[str, list[tuple]]) -> str:
+    """An XLSX file with one sheet per entry, rows appended as given."""
+    import openpyxl
+
+    wb = openpyxl.Workbook()
+    wb.remove(wb.active)
+    for title, rows in sheets.items():
+        ws = wb.create_sheet(title)
+        for row in rows:
+            ws.append(row)
+    wb.save(path)
+    return str(path)
