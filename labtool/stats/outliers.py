@@ -37,6 +37,19 @@ def modified_z_scores(values: np.ndarray, groups: np.ndarray | None = None) -> n
     return np.where(np.isfinite(x), z, np.nan)
 
 
+def robust_location_scale(values: np.ndarray) -> tuple[float, float]:
+    """(median, MAD/0.6745) of the finite values, with the mean-absolute-deviation fallback when MAD is
+    zero: the centre and scale of the modified z-score, for scoring values against another sample."""
+    x = np.asarray(values, dtype=np.float64)
+    x = x[np.isfinite(x)]
+    if x.size == 0:
+        return float("nan"), float("nan")
+    med = float(np.median(x))
+    dev = np.abs(x - med)
+    mad = float(np.median(dev))
+    return med, (mad / _MAD_FACTOR if mad > 0 else _MEANAD_FACTOR * float(dev.mean()))
+
+
 def outlier_mask(values: np.ndarray, limit: float = MODIFIED_Z_LIMIT) -> np.ndarray:
     """True where |modified z| > ``limit``."""
     return np.abs(np.nan_to_num(modified_z_scores(values), nan=0.0)) > limit

@@ -2,9 +2,11 @@
 
 Each hypothesis has a score in [0, 1] (how strongly this part's captures show the pattern), the
 numbers behind it, and the next bench experiment that would confirm or rule it out. Scores are simple
-and stated per hypothesis: fractions of captures, contrasts of stuck fractions between set-ups, and a
-logistic of the modified z-score against the lot at the same set-up, 1/(1 + exp(−(|z| − 3.5))), so
-the usual outlier limit |z| = 3.5 (Iglewicz & Hoaglin 1993) scores 0.5. Field notes on what each
+and stated per hypothesis: fractions of captures, contrasts of stuck fractions between set-ups, a
+logistic of the part's median modified z-score against the lot at the same set-up,
+1/(1 + exp(−(|z| − 3.5))), so the usual outlier limit |z| = 3.5 (Iglewicz & Hoaglin 1993) scores 0.5,
+and for verdict-backed patterns (re-collapse, slow start, ringing, wrong level) at least
+0.5 + 0.5 × the fraction of captures with that verdict once one capture has it. Field notes on what each
 pattern means: docs and GUIDE §4 (common practice, no source).
 """
 
@@ -18,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from labtool.errors import UsageError
-from labtool.stats.outliers import MODIFIED_Z_LIMIT
+from labtool.stats.outliers import MODIFIED_Z_LIMIT, robust_location_scale
 from labtool.stats.table import CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, plain, require_columns
 
 
@@ -52,6 +54,12 @@ class TriageReport:
     def table(self) -> pd.DataFrame:
         return pd.DataFrame([{"rank": i + 1, "name": h.name, "score": h.score, "title": h.title,
                               "next_experiment": h.next_experiment} for i, h in enumerate(self.hypotheses)])
+
+
+# Smallest spread a lot is credited with, relative to its median: one 8-bit quantisation step on a
+# range about the signal's size is 1/256 ≈ 0.4 % (bench scopes are typically 8-bit: common practice,
+# no source). Without it a lot recorded at one code would make any part an outlier.
+_RESOLUTION = {"vout_final_v": 0.004, "delay_s": 0.01, "overshoot_pct": 0.0}
 
 
 def _logistic_z(z: float | None) -> float:
@@ -94,9 +102,8 @@ class _Evidence:
             base = base if len(base) >= 5 else base_all
             if len(base) < 5:
                 continue
-            med = float(np.median(base))
-            mad = float(np.median(np.abs(base - med)))
-            scale = mad / 0.6745 if mad > 0 else max(abs(med) * 1e-6, 1e-30)
+            med, scale = robust_location_scale(base.to_numpy(np.float64))
+            scale = max(scale, _RESOLUTION.get(column, 0.0) * abs(med), 1e-30)
             zs.append((x - med) / scale)
         return float(np.median(zs)) if zs else None
 
@@ -168,11 +175,17 @@ def _temperature(e: _Evidence, cold: bool) -> Hypothesis:
         "with a good part from the lot.")
 
 
+def _any_verdict(e: _Evidence, verdict: str) -> float:
+    """0 without a capture of this verdict; else 0.5 + 0.5 × its fraction (one capture is already a finding)."""
+    frac = e.frac({verdict})
+    return 0.0 if frac == 0 else 0.5 + 0.5 * frac
+
+
 def _falls_back(e: _Evidence) -> Hypothesis:
     n_rc = int((e.powered["verdict"] == "recollapse").sum())
     return Hypothesis(
         "falls_back", "starts then falls back (startup disengages early, or brown-out with a one-shot startup)",
-        0.0 if n_rc == 0 else 0.5 + 0.5 * n_rc / len(e.powered), {"n_recollapse": n_rc, "n_powered": len(e.powered)},
+        _any_verdict(e, "recollapse"), {"n_recollapse": n_rc, "n_powered": len(e.powered)},
         "Capture a longer record with the startup and supply currents; then dip the supply (brown-out) and "
         "recover it: a one-shot startup never re-fires. Compare the disengage threshold with the level at "
         "which the core holds itself.")
@@ -200,8 +213,7 @@ def _outlier(e: _Evidence, column: str, name: str, title: str, verdict: str, exp
              sign: int = 1) -> Hypothesis:
     z = e.z_against_lot(column)
     zs = None if z is None else z * sign if sign else abs(z)
-    frac = e.frac({verdict})
-    score = max(_logistic_z(zs) if zs is not None and zs > 0 else 0.0, frac)
+    score = max(_logistic_z(zs) if zs is not None and zs > 0 else 0.0, _any_verdict(e, verdict))
     return Hypothesis(name, title, float(score),
                       {f"part_{column}": e.part_median(column), f"lot_{column}": e.lot_median(column),
                        "modified_z_vs_lot": z, f"n_{verdict}": int((e.powered["verdict"] == verdict).sum())},

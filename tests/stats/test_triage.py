@@ -88,3 +88,24 @@ def test_part_naming_errors():
     json = triage(df, "ZR24B/p03").to_json_dict()
     assert set(json) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "hypotheses"}
     assert set(json["hypotheses"][0]) == {"name", "title", "score", "evidence", "next_experiment"}
+
+
+def test_one_quantisation_step_is_not_a_level_fault():
+    # An 8-bit record of a 1.2 V level on a 2 V range has 7.8 mV codes (common practice, no source):
+    # a lot read at one code has MAD 0; a part one code lower must not look like a trim fault,
+    # while one 70 mV low must.
+    df = _lot()
+    df["vout_final_v"] = 1.2031
+    df.loc[df["part"] == PART, "vout_final_v"] = 1.2031 - 0.0078
+    h = {h.name: h for h in triage(df, f"ZR24A/{PART}").hypotheses}
+    assert h["level_fault"].score < 0.2
+    df.loc[df["part"] == PART, "vout_final_v"] = 1.13
+    assert triage(df, f"ZR24A/{PART}").hypotheses[0].name == "level_fault"
+
+
+def test_one_ringing_capture_is_already_a_finding():
+    df = _lot()
+    one = df.index[(df["part"] == PART)][4]
+    df.loc[one, ["verdict", "overshoot_pct"]] = ["ringing", 22.0]
+    top = triage(df, f"ZR24A/{PART}").hypotheses[0]
+    assert top.name == "excess_ringing" and top.score == pytest.approx(0.5 + 0.5 / 18)
