@@ -96,7 +96,8 @@ def test_bad_plan_one_line_error(tmp_path, capsys):
 
 def test_bench_sim_serves_on_loopback_only(tmp_path):
     proc = subprocess.Popen([sys.executable, "-m", "labtool.cli", "bench", "sim", "--population",
-                             str(ROOT / "sample_runs" / "population.toml")], cwd=tmp_path,
+                             str(ROOT / "sample_runs" / "population.toml"), "--fault", "supply:error_queue:SOUR1:VOLT"],
+                            cwd=tmp_path,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         lines = [proc.stdout.readline().split() for _ in range(3)]
@@ -106,6 +107,10 @@ def test_bench_sim_serves_on_loopback_only(tmp_path):
         rm = pyvisa.ResourceManager("@py")
         inst = rm.open_resource(resources["supply"], read_termination="\n", write_termination="\n", timeout=2000)
         assert inst.query("*IDN?").startswith("LABTOOL-SIM,SUPPLY")
+        inst.write(":SOUR1:VOLT 1.8")  # the injected fault queues -222 after this command, once
+        assert inst.query(":SYST:ERR?") == '-222,"Data out of range"'
+        inst.write(":SOUR1:VOLT 1.8")
+        assert inst.query(":SYST:ERR?") == '+0,"No error"'
         inst.close()
     finally:
         proc.send_signal(signal.SIGINT)

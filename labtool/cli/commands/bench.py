@@ -27,6 +27,10 @@ def register(sub) -> None:
     s = bench_sub.add_parser("sim", help="serve a simulated scope, supply and chamber on 127.0.0.1")
     s.add_argument("--port", type=int, default=0, help="scope port; supply +1, chamber +2 (default: free ports)")
     s.add_argument("--population", metavar="FILE", help=f"parts on the bench (default {DEFAULT_POPULATION})")
+    s.add_argument("--fault", action="append", default=[], metavar="ROLE:KIND:REGEX",
+                   help="inject a fault once, when REGEX matches a message to ROLE (scope, supply, chamber); "
+                        "KIND: no_reply, late_reply, drop_mid_block, reset_mid_block, truncated_block, "
+                        "wrong_length_header, error_queue, reset (repeatable)")
     s.set_defaults(handler=run_sim)
 
 
@@ -66,7 +70,10 @@ def run_sim(args) -> int:
         raise UsageError(f"{population}: no population file (give --population FILE)")
     if not 0 <= args.port <= 65533:
         raise UsageError(f"--port {args.port}: expected 0 (free ports) or 1-65533")
+    faults = [parse_fault(text) for text in args.fault]
     running = start_population_bench(str(population), port=args.port)
+    for role, fault in faults:
+        running.servers[role].add_fault(fault)
     for role, resource in running.resources.items():
         print(f"{role:<8} {resource}", flush=True)
     print("simulated bench on 127.0.0.1 (loopback only), generic-scpi profile; Ctrl-C stops it", flush=True)
@@ -75,3 +82,14 @@ def run_sim(args) -> int:
     finally:
         running.stop()
     return 0
+
+
+def parse_fault(text: str):
+    from instruments.sim.server import FAULT_KINDS, Fault
+
+    role, _, rest = text.partition(":")
+    kind, _, regex = rest.partition(":")
+    if role not in ("scope", "supply", "chamber") or kind not in FAULT_KINDS:
+        raise UsageError(f"--fault {text!r}: expected ROLE:KIND:REGEX with ROLE scope, supply or chamber and "
+                         f"KIND one of {', '.join(FAULT_KINDS)}")
+    return role, Fault(kind, match=regex, connection=None, times=1)
