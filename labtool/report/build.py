@@ -63,7 +63,8 @@ class _Job:
     records: tuple[dict, ...] = field(default=(), repr=False)  # catalog records of the traces to draw
     baseline_records: tuple[dict, ...] = field(default=(), repr=False)
     baseline_rows: pd.DataFrame | None = field(default=None, repr=False)
-    predicted_delays_s: np.ndarray | None = field(default=None, repr=False)
+    predicted_delays_s: np.ndarray | None = field(default=None, repr=False)  # the group's mix of set-ups
+    predicted_by_ramp: Mapping | None = field(default=None, repr=False)  # ramp_s → delays at that ramp
     predictions: pd.DataFrame | None = field(default=None, repr=False)
     spec_max_delay_s: float | None = None
     hypotheses: tuple = ()
@@ -107,7 +108,7 @@ def _overview_plots(job: _Job):
 def _group_plots(job: _Job):
     rows = job.rows
     out = [(plots.delay_histogram(rows, title=f"{job.label}: startup delay", spec_max_delay_s=job.spec_max_delay_s,
-                                  predicted_delays_s=job.predicted_delays_s),
+                                  predicted_delays_s=job.predicted_by_ramp),
             "Startup delay from supply valid (90 % of final output level); failures by verdict beside it.")]
     for ramp, sub_records, n_total in _overlay_sets(job):
         traces = _load_traces(job.root, sub_records, rows)
@@ -261,6 +262,8 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
             from labtool.stats.predictions import predictions_from_model
 
             predictions = predictions_from_model(design, table, n=model_samples, seed=seed, scheduler=scheduler)
+        model_failed = [(f"Monte Carlo at ramp_s={r:g}, temperature_c={t:g}", why)
+                        for (r, t), why in (predictions.attrs.get("failed", []) if predictions is not None else [])]
         comparisons = comparison_table(compare(table, predictions, by)) if predictions is not None else None
         returned = _returned_parts(table)
         jobs = _jobs(table, by, root, camp, out / "plots", predictions, spec_max_delay_s, returned, design)
@@ -268,7 +271,7 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
         if camp is not None and camp is not campaign:
             camp.close()
     outcomes = list(run_batch(render_job, jobs, scheduler, what="report", unit="group"))
-    failed = tuple((o.item.label, o.error) for o in outcomes if not o.ok)
+    failed = (*model_failed, *((o.item.label, o.error) for o in outcomes if not o.ok))
     drawn = {o.item.label: [(out / "plots" / name, caption) for name, caption in o.value] for o in outcomes if o.ok}
     about = {"labtool_version": __version__, "generated_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
              "campaign": root or "(measurement table)", "grouped_by": ",".join(by), "limits_key": limits_key,
@@ -307,8 +310,11 @@ def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) 
     for key, rows in groups(table, by, "--by"):
         label = group_label(key)
         records = tuple(camp.records(list(rows["capture_id"]))) if camp is not None else ()
+        by_ramp = None
+        if predictions is not None and "ramp_s" in rows.columns:
+            by_ramp = {r: _predicted_for(rows[rows["ramp_s"] == r], predictions) for r in rows["ramp_s"].dropna().unique()}
         jobs.append(_Job("group", label, slug(label), rows=rows, records=records,
-                         predicted_delays_s=_predicted_for(rows, predictions), **common))
+                         predicted_delays_s=_predicted_for(rows, predictions), predicted_by_ramp=by_ramp, **common))
     labels = part_labels(table)
     for part in returned:
         mine = table[labels == part]

@@ -75,63 +75,90 @@ def _verdict_counts(verdicts) -> dict[str, int]:
 
 
 # ---------------------------------------------------------------------------------------------
-def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float | None = None,
-                    predicted_delays_s=None, bins: int | Sequence[float] | None = None) -> Plot:
-    """Histogram of the group's startup delays, the spec limit, the model's predicted distribution
-    (scaled to the same number of captures) and the count of every verdict beside it.
+def _bin_edges(measured: np.ndarray, pooled: np.ndarray, bins) -> np.ndarray:
+    """Explicit edges as given; else ``bins`` (or numpy's "auto" count, 6 to 40) equal bins over ``pooled``."""
+    if np.ndim(bins) == 1:
+        return np.asarray(bins, dtype=float)
+    if not pooled.size:
+        return np.linspace(0.0, 1e-6, 7)
+    n_bins = bins or int(np.clip(len(np.histogram_bin_edges(measured if measured.size else pooled, bins="auto")) - 1,
+                                 6, 40))
+    lo, hi = float(pooled.min()), float(pooled.max())
+    return np.linspace(lo, hi if hi > lo else lo + 1e-9, n_bins + 1)
 
+
+def _facets(table: pd.DataFrame, facet: str | None, max_facets: int) -> list[tuple[Any, pd.DataFrame]]:
+    """(value, rows) per facet value, up to ``max_facets`` spread over the sorted values; one facet
+    (value None) holding every row when the column is absent or empty."""
+    if not facet or facet not in table.columns or table[facet].isna().all():
+        return [(None, table)]
+    values = sorted(table[facet].dropna().unique())
+    if len(values) > max_facets:
+        values = [values[i] for i in np.linspace(0, len(values) - 1, max_facets).round().astype(int)]
+    return [(v, table[table[facet] == v]) for v in values]
+
+
+def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float | None = None,
+                    predicted_delays_s=None, bins: int | Sequence[float] | None = None, facet: str | None = "ramp_s",
+                    max_facets: int = 4) -> Plot:
+    """Histogram of the group's startup delays, one panel per supply ramp time (delays at different
+    ramps differ by orders of magnitude, and are negative when the reference is up before the supply
+    is valid), with the spec limit, the model's predicted distribution (scaled to the panel's count)
+    and, beside them, the count of every failure verdict.
+
+    ``predicted_delays_s``: one array (every panel) or a mapping facet value → array.
     ``bins``: a count or explicit edges in seconds; by default numpy's "auto" rule, 6 to 40 bins.
     """
     with rc_context(style.RC):
-        measured = _finite_values(table.get("delay_s", []))
-        predicted = _finite_values([] if predicted_delays_s is None else predicted_delays_s)
-        pooled = np.concatenate([measured, predicted, [] if spec_max_delay_s is None else [spec_max_delay_s]])
-        if np.ndim(bins) == 1:
-            edges = np.asarray(bins, dtype=float)
-        elif pooled.size:
-            n_bins = bins or int(np.clip(len(np.histogram_bin_edges(measured if measured.size else pooled,
-                                                                    bins="auto")) - 1, 6, 40))
-            lo, hi = float(pooled.min()), float(pooled.max())
-            edges = np.linspace(lo, hi if hi > lo else lo + 1e-9, n_bins + 1)
-        else:
-            edges = np.linspace(0.0, 1e-6, 7)
-        counts, _ = np.histogram(measured, edges)
-        predicted_counts = None
-        if predicted.size:
-            predicted_counts = np.histogram(predicted, edges)[0] / predicted.size * max(measured.size, 1)
-        factor, unit = time_scale(np.concatenate([measured, predicted]) if pooled.size else [])
-
-        fig = _figure()
-        grid = fig.add_gridspec(1, 2, width_ratios=(3.2, 1.25))
-        ax = fig.add_subplot(grid[0, 0])
-        side = fig.add_subplot(grid[0, 1])
-        ax.bar(edges[:-1] / factor, counts, width=np.diff(edges) / factor, align="edge",
-               color=style.INKS.bars, edgecolor=style.INKS.ink, linewidth=0.6, label="measured", gid="measured")
-        if predicted_counts is not None:
-            ax.stairs(predicted_counts, edges / factor, color=style.INKS.ink, linewidth=2.0, linestyle="--",
-                      label=f"model ({predicted.size} samples, scaled)", gid="predicted")
-        if spec_max_delay_s is not None:
-            ax.axvline(spec_max_delay_s / factor, color=style.INKS.accent, linestyle="-.", linewidth=1.6,
-                       gid="spec", label=f"spec max {spec_max_delay_s / factor:.4g} {unit}")
-        ax.set_xlabel(f"startup delay from supply valid [{unit}]")
-        ax.set_ylabel("captures")
-        ax.set_title(title)
-        if measured.size:
-            p05, p50, p95 = np.percentile(measured, [5, 50, 95])
-            ax.text(0.99, 0.97, f"n = {measured.size} with a delay\nmedian {p50 / factor:.3g} {unit}\n"
-                                f"p05–p95 {p05 / factor:.3g}–{p95 / factor:.3g} {unit}",
-                    transform=ax.transAxes, ha="right", va="top", fontsize=8, color=style.INKS.slate)
-        else:
-            ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
-                    color=style.INKS.slate)
-        ax.legend(loc="upper left")
-
+        facets = _facets(table, facet, max_facets)
+        fig = _figure((9.0, 1.0 + 2.9 * len(facets)))
+        grid = fig.add_gridspec(len(facets), 2, width_ratios=(3.2, 1.25))
+        panels = []
+        for row, (value, rows) in enumerate(facets):
+            predicted = predicted_delays_s.get(value) if isinstance(predicted_delays_s, Mapping) else predicted_delays_s
+            ax = fig.add_subplot(grid[row, 0])
+            what = title if value is None else f"{title} · ramp {format_si(float(value), 's')}"
+            panels.append({"facet": value, **_histogram_panel(ax, rows, what, spec_max_delay_s, predicted, bins)})
+        side = fig.add_subplot(grid[:, 1])
         verdict_counts = _verdict_counts(table.get("verdict", []))
         _verdict_bars(side, verdict_counts)
-        fig.suptitle("")
-    return Plot("delay_histogram", fig, {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts,
-                                         "verdict_counts": verdict_counts, "spec_max_delay_s": spec_max_delay_s,
-                                         "time_unit": unit})
+    return Plot("delay_histogram", fig, {"panels": panels, "verdict_counts": verdict_counts,
+                                         "spec_max_delay_s": spec_max_delay_s})
+
+
+def _histogram_panel(ax, rows: pd.DataFrame, title: str, spec_max_delay_s, predicted_delays_s, bins) -> dict:
+    measured = _finite_values(rows.get("delay_s", []))
+    predicted = _finite_values([] if predicted_delays_s is None else predicted_delays_s)
+    pooled = np.concatenate([measured, predicted, [] if spec_max_delay_s is None else [spec_max_delay_s]])
+    edges = _bin_edges(measured, pooled, bins)
+    counts, _ = np.histogram(measured, edges)
+    predicted_counts = None
+    if predicted.size:
+        predicted_counts = np.histogram(predicted, edges)[0] / predicted.size * max(measured.size, 1)
+    factor, unit = time_scale(np.concatenate([measured, predicted]))
+    ax.bar(edges[:-1] / factor, counts, width=np.diff(edges) / factor, align="edge", color=style.INKS.bars,
+           edgecolor=style.INKS.ink, linewidth=0.6, label="measured", gid="measured")
+    if predicted_counts is not None:
+        ax.stairs(predicted_counts, edges / factor, color=style.INKS.ink, linewidth=2.0, linestyle="--",
+                  label=f"model ({predicted.size} samples, scaled)", gid="predicted")
+    if spec_max_delay_s is not None:
+        ax.axvline(spec_max_delay_s / factor, color=style.INKS.accent, linestyle="-.", linewidth=1.6, gid="spec",
+                   label=f"spec max {spec_max_delay_s / factor:.4g} {unit}")
+    ax.set_xlabel(f"startup delay from supply valid [{unit}]")
+    ax.set_ylabel("captures")
+    ax.yaxis.get_major_locator().set_params(integer=True)
+    ax.set_title(title, fontsize=10)
+    if measured.size:
+        p05, p50, p95 = np.percentile(measured, [5, 50, 95])
+        ax.text(0.99, 0.97, f"n = {measured.size} with a delay\nmedian {p50 / factor:.3g} {unit}\n"
+                            f"p05–p95 {p05 / factor:.3g} to {p95 / factor:.3g} {unit}",
+                transform=ax.transAxes, ha="right", va="top", fontsize=8, color=style.INKS.slate,
+                bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
+    else:
+        ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
+                color=style.INKS.slate)
+    ax.legend(loc="upper left")
+    return {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts, "time_unit": unit}
 
 
 def _verdict_bars(ax, counts: Mapping[str, int]) -> None:
@@ -245,68 +272,103 @@ def condition_spread(table: pd.DataFrame, condition: str, group_col: str | None 
 
 def delay_vs_conditions(table: pd.DataFrame, *, title: str, group_col: str | None = "lot",
                         predicted: pd.DataFrame | None = None) -> Plot:
-    """Startup delay against supply ramp time (log axis) and temperature: every capture as a small
-    point, per-condition median with its p05–p95 bar, the model's median when given."""
+    """Startup delay against supply ramp time (log axis, one series per group) and against
+    temperature (one series per ramp time, the factor that moves delays most): every capture as a
+    small point, per condition the median with its p05–p95 bar, the model's median dashed.
+    Delays spanning decades or both signs get a symmetric-log axis."""
     with rc_context(style.RC):
         group_col = group_col if group_col in table.columns else None
-        factor, unit = time_scale(_finite_values(table.get("delay_s", [])))
+        delays = _finite_values(table.get("delay_s", []))
+        factor, unit = time_scale(delays)
         fig = _figure()
         axes = fig.subplots(1, 2, sharey=True)
         spreads = {}
-        for ax, condition, label in ((axes[0], "ramp_s", "supply ramp time [s]"),
-                                     (axes[1], "temperature_c", "temperature [°C]")):
-            has = condition in table.columns and table[condition].notna().any()
-            if not has:
+        panels = ((axes[0], "ramp_s", group_col, "supply ramp time [s]"),
+                  (axes[1], "temperature_c", "ramp_s" if "ramp_s" in table.columns else group_col, "temperature [°C]"))
+        for ax, condition, series, label in panels:
+            if condition not in table.columns or table[condition].isna().all():
                 ax.text(0.5, 0.5, f"no {condition} recorded", transform=ax.transAxes, ha="center")
-                spreads[condition] = condition_spread(table.iloc[0:0].assign(**{condition: []}), condition)
+                spreads[condition] = condition_spread(table.assign(**{condition: np.nan}), condition)
                 continue
-            spread = condition_spread(table, condition, group_col)
-            spreads[condition] = spread
-            _draw_condition_panel(ax, table, spread, condition, group_col, factor, log=condition == "ramp_s")
+            series = series if series != condition else None
+            spreads[condition] = condition_spread(table, condition, series)
+            styles = _series_styles(spreads[condition], series)
+            _draw_condition_panel(ax, table, spreads[condition], condition, series, styles, factor,
+                                  log=condition == "ramp_s")
             if predicted is not None and condition in predicted.columns and len(predicted):
-                model = condition_spread(predicted.assign(verdict=predicted.get("verdict", "started")), condition)
-                ax.plot(model[condition], model["delay_median_s"] / factor, color=style.INKS.ink, linestyle="--",
-                        marker="x", linewidth=1.2, label="model median", gid="model")
+                _draw_model(ax, predicted, condition, series if series in predicted.columns else None, styles, factor)
             ax.set_xlabel(label)
-        axes[0].set_ylabel(f"startup delay [{unit}]")
+            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncols=2, fontsize=7.5)
+        linear_range = symlog_threshold(delays / factor)
+        if linear_range is not None:
+            axes[0].set_yscale("symlog", linthresh=linear_range)
+        axes[0].set_ylabel(f"startup delay [{unit}]" + (" (symmetric log)" if linear_range else ""))
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-        handles, labels = axes[0].get_legend_handles_labels()
-        if handles:
-            fig.legend(handles, labels, loc="outside lower center", ncols=min(len(handles), 4))
     return Plot("delay_vs_conditions", fig, {"ramp_s": spreads["ramp_s"], "temperature_c": spreads["temperature_c"],
-                                             "time_unit": unit})
+                                             "time_unit": unit, "symlog_linthresh": linear_range})
 
 
-def _draw_condition_panel(ax, table, spread, condition, group_col, factor, *, log: bool) -> None:
-    groups = list(dict.fromkeys(spread[group_col])) if group_col else [None]
+def symlog_threshold(values: np.ndarray) -> float | None:
+    """The linear half-width for a symmetric-log axis when values span more than two decades
+    (including both signs); None when a linear axis shows them well."""
+    mags = np.abs(values[np.isfinite(values) & (values != 0)])
+    if mags.size < 2 or mags.max() / mags.min() <= 100:
+        return None
+    return float(np.percentile(mags, 10))
+
+
+def _series_label(column: str | None, value) -> str:
+    if column is None:
+        return "all"
+    if column.endswith("_s") and value is not None:
+        return f"ramp {format_si(float(value), 's')}" if column == "ramp_s" else format_si(float(value), "s")
+    return str(value)
+
+
+def _series_styles(spread: pd.DataFrame, series: str | None) -> dict:
+    """Colour and marker per series key, in the order the keys appear."""
+    keys = list(dict.fromkeys(spread[series])) if series else [None]
+    return {k: GROUP_STYLES[i % len(GROUP_STYLES)] for i, k in enumerate(keys)}
+
+
+def _draw_model(ax, predicted: pd.DataFrame, condition: str, series: str | None, styles: dict, factor: float) -> None:
+    model = condition_spread(predicted.assign(verdict=predicted.get("verdict", "started")), condition, series)
+    keys = list(dict.fromkeys(model[series])) if series else [None]
+    for si, key in enumerate(keys):
+        part = model if key is None else model[model[series] == key]
+        colour = styles.get(key, GROUP_STYLES[0])[0]
+        ax.plot(part[condition], part["delay_median_s"] / factor, color=colour, linestyle="--", marker="x",
+                linewidth=1.1, label="model median" if si == 0 else None, gid="model")
+
+
+def _draw_condition_panel(ax, table, spread, condition, series, styles, factor, *, log: bool) -> None:
+    keys = list(styles)
     values = np.sort(spread[condition].unique())
-    # Groups side by side around each condition value: multiplicative offsets on a log axis.
-    step = 0.14 if log else 0.9 * (np.min(np.diff(values)) if values.size > 1 else 10.0) / max(len(groups), 1) / 2
+    # Series side by side around each condition value: multiplicative offsets on a log axis.
+    step = 0.14 if log else 0.9 * (np.min(np.diff(values)) if values.size > 1 else 10.0) / max(len(keys), 1) / 2
     rng = np.random.default_rng(0)  # fixed jitter: the same table always draws the same picture
-    for gi, g in enumerate(groups):
-        colour, marker = GROUP_STYLES[gi % len(GROUP_STYLES)]
-        offset = (gi - (len(groups) - 1) / 2) * step
-        sub = table if g is None else table[table[group_col] == g]
+    stuck = style.VERDICT_STYLES["stuck_at_zero"]
+    for si, key in enumerate(keys):
+        colour, marker = styles[key]
+        offset = (si - (len(keys) - 1) / 2) * step
+        sub = table if key is None else table[table[series] == key]
         x = pd.to_numeric(sub[condition], errors="coerce").to_numpy(float)
         y = pd.to_numeric(sub["delay_s"], errors="coerce").to_numpy(float) / factor
         jitter = rng.uniform(-0.35, 0.35, x.size) * step
         xs = x * 10 ** (offset + jitter) if log else x + offset + jitter
         ax.scatter(xs, y, s=8, color=colour, alpha=0.35, marker=marker, linewidths=0, gid="capture")
-        gs = spread if g is None else spread[spread[group_col] == g]
-        cx = gs[condition].to_numpy(float)
+        ss = spread if key is None else spread[spread[series] == key]
+        cx = ss[condition].to_numpy(float)
         cx = cx * 10 ** offset if log else cx + offset
-        med = gs["delay_median_s"].to_numpy(float) / factor
-        err = np.vstack([med - gs["delay_p05_s"].to_numpy(float) / factor,
-                         gs["delay_p95_s"].to_numpy(float) / factor - med])
-        ax.errorbar(cx, med, yerr=err, fmt=marker, color=colour, markersize=6, markeredgecolor="white",
-                    capsize=3, linewidth=1.4, label=f"{g}: median, p05–p95" if g is not None else "median, p05–p95",
-                    gid="median")
-        stuck = style.VERDICT_STYLES["stuck_at_zero"]
-        for xi, n_stuck in zip(cx, gs["n_stuck"]):
+        med = ss["delay_median_s"].to_numpy(float) / factor
+        err = np.vstack([med - ss["delay_p05_s"].to_numpy(float) / factor,
+                         ss["delay_p95_s"].to_numpy(float) / factor - med])
+        ax.errorbar(cx, med, yerr=err, fmt=marker, color=colour, markersize=6, markeredgecolor="white", capsize=3,
+                    linewidth=1.4, label=f"{_series_label(series, key)}: median, p05–p95", gid="median")
+        for xi, n_stuck in zip(cx, ss["n_stuck"]):
             if n_stuck:  # stuck captures have no delay: counted along the top edge instead
-                ax.annotate(f"{n_stuck} stuck", (xi, 1.0 - 0.045 * gi),
-                            xycoords=("data", "axes fraction"), ha="center", va="top", fontsize=7,
-                            color=stuck.colour, gid="stuck_count")
+                ax.annotate(f"{n_stuck} stuck", (xi, 1.0 - 0.045 * si), xycoords=("data", "axes fraction"),
+                            ha="center", va="top", fontsize=7, color=stuck.colour, gid="stuck_count")
     if log:
         ax.set_xscale("log")
 
@@ -424,7 +486,12 @@ def qq_plot(measured_s, predicted_s, *, title: str) -> Plot:
                     linewidth=1.0, label="measured = predicted", gid="identity")
             ax.scatter(qp / factor, qm / factor, s=16, color=style.INKS.accent, edgecolors="white",
                        linewidths=0.4, label=f"{probs.size} quantiles", gid="qq")
-            ax.set_aspect("equal", adjustable="datalim")
+            linear_range = symlog_threshold(np.concatenate([qm, qp]) / factor)
+            if linear_range is not None:  # set-ups whose delays differ by decades: keep each visible
+                ax.set_xscale("symlog", linthresh=linear_range)
+                ax.set_yscale("symlog", linthresh=linear_range)
+            else:
+                ax.set_aspect("equal", adjustable="datalim")
             ax.legend(loc="upper left")
         else:
             ax.text(0.5, 0.5, "needs measured and predicted delays", transform=ax.transAxes, ha="center")

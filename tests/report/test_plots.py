@@ -35,7 +35,7 @@ def test_histogram_bars_equal_the_counts_and_the_verdict_counts_are_beside_it():
     bars = sorted(_by_gid(fig, Rectangle, "measured"), key=lambda r: r.get_x())
     assert [r.get_height() for r in bars] == [2, 1, 3, 2]
     assert [round(r.get_x(), 9) for r in bars] == [0.0, 1.5, 2.5, 3.5]  # drawn in µs
-    assert plot.data["time_unit"] == "µs"
+    assert plot.data["panels"][0]["time_unit"] == "µs" and len(plot.data["panels"]) == 1
     # The model's 4 samples scaled to the 8 measured delays: bins hold 1, 2, 1, 0 samples → ×2.
     (stairs,) = _by_gid(fig, StepPatch, "predicted")
     np.testing.assert_allclose(stairs.get_data().values, [2.0, 4.0, 2.0, 0.0])
@@ -59,7 +59,25 @@ def test_histogram_default_bins_cover_every_delay_and_count_them_all():
     heights = [r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured")]
     assert sum(heights) == 500
     # numpy.histogram as the reference counter over the same edges.
-    np.testing.assert_array_equal(heights, np.histogram(d, plot.data["edges_s"])[0])
+    np.testing.assert_array_equal(heights, np.histogram(d, plot.data["panels"][0]["edges_s"])[0])
+
+
+def test_histogram_has_one_panel_per_ramp_time_with_that_ramps_prediction():
+    # Delays at a slow ramp are negative (reference up before the supply is valid): own panel.
+    table = measurement_rows([("A", None, None, None, "started", d) for d in (10e-6, 11e-6, 11e-6)]
+                             + [("A", None, None, None, "started", d) for d in (-1e-3, -1.1e-3)])
+    table.loc[3:, "ramp_s"] = 0.1
+    plot = plots.delay_histogram(table, title="A", bins=4,
+                                 predicted_delays_s={1e-4: [10e-6, 12e-6], 0.1: [-1.05e-3] * 4})
+    panels = plot.data["panels"]
+    assert [p["facet"] for p in panels] == [1e-4, 0.1]
+    assert [int(p["counts"].sum()) for p in panels] == [3, 2]
+    assert panels[0]["time_unit"] == "µs" and panels[1]["time_unit"] == "ms"
+    np.testing.assert_allclose(panels[1]["predicted_counts"].sum(), 2.0)  # scaled to that panel's 2 captures
+    titles = [ax.get_title(loc="left") for ax in plot.figure.axes]
+    assert "A · ramp 100 µs" in titles and "A · ramp 100 ms" in titles
+    heights = sorted(r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured"))
+    assert sum(heights) == 5
 
 
 # -- waveform overlay -------------------------------------------------------------------------
@@ -186,6 +204,20 @@ def test_condition_spread_matches_numpy_percentiles_and_counts_stuck_captures():
     assert "1 stuck" in _texts(plot.figure)
     points = _by_gid(plot.figure, PathCollection, "capture")
     assert sum(len(p.get_offsets()) for p in points) == 2 * len(table)  # every capture, in both panels
+    # Against temperature, one series per ramp time.
+    labels = plot.figure.axes[1].get_legend_handles_labels()[1]
+    assert labels == ["ramp 10 µs: median, p05–p95", "ramp 1 ms: median, p05–p95"]
+    assert plot.data["symlog_linthresh"] is None  # 10–30 µs: a linear axis
+
+
+def test_delays_spanning_decades_and_signs_get_a_symmetric_log_axis():
+    assert plots.symlog_threshold(np.array([10.0, 12.0, 20.0])) is None
+    values = np.array([-11000.0, -100.0, 10.0, 12.0, 17.0])
+    assert plots.symlog_threshold(values) == pytest.approx(np.percentile(np.abs(values), 10))
+    table = pd.DataFrame({"lot": "A", "ramp_s": [1e-5, 1e-5, 0.1], "temperature_c": 25.0, "verdict": "started",
+                          "delay_s": [12e-6, 15e-6, -11e-3]})
+    plot = plots.delay_vs_conditions(table, title="A")
+    assert plot.figure.axes[0].get_yscale() == "symlog"
 
 
 # -- triage sheet -----------------------------------------------------------------------------
