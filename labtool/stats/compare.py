@@ -26,9 +26,10 @@ from labtool.stats.predictions import NUMERIC_CONDITIONS, TEXT_CONDITIONS
 from labtool.stats.table import CAME_UP, STUCK, groups, plain, require_columns
 
 ALPHA = 0.05
-# When the delay laws differ, the finding is the spread only if the medians agree within _MEDIAN_BAND
-# and the IQRs differ beyond _SPREAD_BAND; otherwise the direction of the median (slower / faster).
-_MEDIAN_BAND = (0.9, 1.1)
+# When the delay laws differ, the finding is the spread only if the location shift is small against
+# the predicted spread (|shift| < _SHIFT_OF_IQR × IQR) and the IQRs differ beyond _SPREAD_BAND;
+# otherwise the direction of the shift (slower / faster).
+_SHIFT_OF_IQR = 0.25
 _SPREAD_BAND = (0.8, 1.25)
 
 
@@ -43,6 +44,7 @@ class Comparison:
     predicted_delay_median_s: float | None
     measured_delay_iqr_s: float | None
     predicted_delay_iqr_s: float | None
+    delay_shift_s: float | None
     median_ratio: float | None
     spread_ratio: float | None
     ks_stat: float | None
@@ -103,6 +105,21 @@ def mixed_prediction(pred_by_cell: Mapping[tuple, pd.DataFrame], measured_counts
     return d[~s], s
 
 
+def _shift(rows: pd.DataFrame, cells: pd.Series, pred_by_cell: Mapping[tuple, pd.DataFrame]) -> float | None:
+    """Median over the measured captures of (delay − predicted median delay at the capture's set-up):
+    a location difference that stays meaningful when a group mixes set-ups (and delays are negative)."""
+    if "delay_s" not in rows.columns:
+        return None
+    medians = {}
+    for cell in set(cells):
+        p = pred_by_cell[cell]
+        d = p.loc[~p["stuck"], "delay_s"].to_numpy(np.float64)
+        medians[cell] = float(np.median(d[np.isfinite(d)])) if np.isfinite(d).any() else np.nan
+    diff = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(np.float64) - cells.map(medians).to_numpy(np.float64)
+    diff = diff[np.isfinite(diff)]
+    return float(np.median(diff)) if diff.size else None
+
+
 def _iqr(x: np.ndarray) -> float | None:
     return float(np.subtract(*np.percentile(x, [75, 25]))) if x.size >= 2 else None
 
@@ -128,16 +145,18 @@ def _finding(c: dict) -> tuple[str, tuple[str, ...], str]:
                      f"{100 * c['predicted_p_stuck']:.3g} % predicted (Fisher exact p = {c['stuck_pvalue']:.2g})")
     pvals = [p for p in (c["ks_pvalue"], c["ad_pvalue"]) if p is not None]
     if pvals and min(pvals) < ALPHA:
-        ratio, spread = c["median_ratio"], c["spread_ratio"]
-        if _MEDIAN_BAND[0] <= ratio <= _MEDIAN_BAND[1] and spread is not None \
+        shift, spread = c["delay_shift_s"], c["spread_ratio"]
+        if spread is not None and abs(shift) < _SHIFT_OF_IQR * c["predicted_delay_iqr_s"] \
                 and not _SPREAD_BAND[0] <= spread <= _SPREAD_BAND[1]:
             code = "wider" if spread > 1 else "narrower"
             words.append(f"delay spread {code} than predicted: IQR {c['measured_delay_iqr_s']:.3g} s vs "
                          f"{c['predicted_delay_iqr_s']:.3g} s")
         else:
-            code = "slower" if ratio > 1 else "faster"
-            words.append(f"{code} than predicted: median delay {c['measured_delay_median_s']:.3g} s vs "
-                         f"{c['predicted_delay_median_s']:.3g} s (×{ratio:.3g})")
+            code = "slower" if shift > 0 else "faster"
+            ratio = f", ×{c['median_ratio']:.3g}" if c["median_ratio"] is not None else ""
+            words.append(f"{code} than predicted: delays {shift:+.3g} s from the prediction at their set-ups "
+                         f"(median {c['measured_delay_median_s']:.3g} s vs {c['predicted_delay_median_s']:.3g} s"
+                         f"{ratio})")
         found.append(code)
         words[-1] += f"; KS p = {c['ks_pvalue']:.2g}, AD p = {c['ad_pvalue']:.2g}"
     if not found:
@@ -172,10 +191,11 @@ def _compare_group(group: dict, rows: pd.DataFrame, pred_by_cell: Mapping[tuple,
     med_p = float(np.median(pred_delays)) if pred_delays.size else None
     iqr_m, iqr_p = _iqr(meas_delays), _iqr(pred_delays)
     c = dict(
+        delay_shift_s=_shift(used[came_up], cells[matched][came_up], pred_by_cell),
         group=group, match_columns=cols, n_measured=n, n_unmatched=int((~matched).sum()), n_predicted=npred,
         measured_delay_median_s=med_m, predicted_delay_median_s=med_p,
         measured_delay_iqr_s=iqr_m, predicted_delay_iqr_s=iqr_p,
-        median_ratio=(med_m / med_p if med_m is not None and med_p else None),
+        median_ratio=(med_m / med_p if med_m is not None and med_p is not None and med_m > 0 and med_p > 0 else None),
         spread_ratio=(iqr_m / iqr_p if iqr_m is not None and iqr_p else None),
         ks_stat=ks_stat, ks_pvalue=ks_p, ad_stat=ad_stat, ad_pvalue=ad_p,
         measured_n_stuck=k, measured_p_stuck=(k / n if n else None),

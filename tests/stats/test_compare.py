@@ -107,3 +107,29 @@ def test_bad_predictions_tables_get_one_clear_error(tmp_path, text, message):
     path.write_text(text)
     with pytest.raises(InputError, match=message):
         load_predictions(path)
+
+
+def test_negative_delays_on_slow_ramps_keep_the_right_direction():
+    # On slow ramps the output is up before the supply is valid: delays are negative. Measured
+    # −100 µs against a predicted −250 µs is a later start, i.e. slower (invented data).
+    meas = measurement_table(ramps=(1e-2,), temps=(25.0,), parts=20, seed=8,
+                             delay_s=lambda rng, n: rng.normal(-100e-6, 5e-6, n))
+    rng = np.random.default_rng(9)
+    pred = pd.DataFrame({"ramp_s": 1e-2, "temperature_c": 25.0, "delay_s": rng.normal(-250e-6, 5e-6, 200),
+                         "stuck": False})
+    (c,) = compare(meas, pred)
+    assert c.finding == "slower"
+    assert c.delay_shift_s == pytest.approx(150e-6, rel=0.05)
+    assert c.median_ratio is None  # a ratio of negative delays means nothing
+    assert c.finding_text.startswith("slower than predicted: delays +0.000149 s from the prediction")
+
+
+def test_shift_is_taken_per_setup_in_a_mixed_group():
+    # Fast set-up 5 µs predicted, slow −200 µs predicted; measured both exactly 2 µs later.
+    meas = measurement_table(ramps=(1e-5, 1e-2), temps=(25.0,), parts=10, repeats=2, seed=9)
+    meas["delay_s"] = np.where(meas["ramp_s"] == 1e-5, 7e-6, -198e-6) + np.linspace(-1e-7, 1e-7, len(meas))
+    pred = pd.concat([pd.DataFrame({"ramp_s": 1e-5, "delay_s": np.linspace(4.9e-6, 5.1e-6, 50), "stuck": False}),
+                      pd.DataFrame({"ramp_s": 1e-2, "delay_s": np.linspace(-200.1e-6, -199.9e-6, 50), "stuck": False})])
+    (c,) = compare(meas, pred.assign(temperature_c=25.0))
+    assert c.delay_shift_s == pytest.approx(2e-6, rel=0.1)
+    assert c.finding == "slower"
