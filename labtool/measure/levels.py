@@ -53,7 +53,8 @@ def quantisation_step(v: np.ndarray) -> float:
     """Spacing of the value grid when the record is quantised (ADC codes, rounded exports), else 0.
 
     A record is taken as quantised when its values repeat a lot (fewer distinct values than half the
-    samples looked at); the step is then the smallest gap between distinct values.
+    samples looked at) and the smallest gap between distinct values is at most an eighth of the range
+    (an ideal two-level record repeats its values too, but its "step" is the whole amplitude).
     """
     codes = np.unique(subsample(v))
     if codes.size < 2 or codes.size > subsample(v).size // 2:
@@ -61,7 +62,8 @@ def quantisation_step(v: np.ndarray) -> float:
     gaps = np.diff(codes)
     span = codes[-1] - codes[0]
     gaps = gaps[gaps > 1e-9 * span]  # float rounding of one code is not a second code
-    return float(gaps.min()) if gaps.size else 0.0
+    step = float(gaps.min()) if gaps.size else 0.0
+    return step if step <= span / 8 else 0.0
 
 
 def noise_rms(v: np.ndarray) -> float:
@@ -98,10 +100,10 @@ def _refined_mode(v: np.ndarray, counts: np.ndarray, lo: float, width: float, fi
     return float(near.mean()) if near.size else lo + (mode_bin + 0.5) * width
 
 
-def _grid(v: np.ndarray) -> tuple[float, float, float]:
-    """Histogram origin, bin width and span for a (subsampled) record."""
+def _grid(v: np.ndarray, q: float | None = None) -> tuple[float, float, float]:
+    """Histogram origin, bin width and span for a (subsampled) record with code step ``q`` (found when None)."""
     vmin, vmax = float(v.min()), float(v.max())
-    q = quantisation_step(v)
+    q = quantisation_step(v) if q is None else q
     width = _bin_width(vmax - vmin, q, noise_rms(v))
     origin = vmin - (q / 2 if q > 0 else width / 2)  # codes in bin centres
     return origin, width, vmax - vmin
@@ -122,15 +124,16 @@ def state_levels(v: np.ndarray) -> StateLevels:
     return StateLevels(low, high)
 
 
-def segment_level(v: np.ndarray) -> float:
+def segment_level(v: np.ndarray, step_v: float | None = None) -> float:
     """The single state level of a segment that is in one state (the histogram mode of all of it).
 
     Used for the start and the settled end of a record (IEEE Std 181 §5.2 histogram method applied to
-    one state).
+    one state). ``step_v`` is the code step of the whole record: a flat segment spans too few codes to
+    find it by itself.
     """
     v = np.asarray(v, dtype=np.float64)
     s = subsample(v)
-    origin, width, span = _grid(s)
+    origin, width, span = _grid(s, step_v)
     if span == 0:
         return float(s[0])
     counts = _histogram(s, origin, width)

@@ -107,8 +107,8 @@ def signal_levels(v: np.ndarray) -> SignalLevels:
     n = v.size
     noise, step = noise_rms(v), quantisation_step(v)
     tail = v[n - max(MIN_SEGMENT, int(n * TAIL_FRACTION)):]
-    return SignalLevels(initial_v=segment_level(_head(v, noise, step)), final_v=segment_level(tail), noise_v=noise,
-                        step_v=step)
+    return SignalLevels(initial_v=segment_level(_head(v, noise, step), step), final_v=segment_level(tail, step),
+                        noise_v=noise, step_v=step)
 
 
 def _supply_metrics(t, supply, levels: SignalLevels, limits: Limits):
@@ -143,7 +143,9 @@ def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limit
     zero_v = _zero_threshold(out, sup.final_v, limits)
     peak_v = sustained_max(output)
     left_zero = peak_v > zero_v
-    final_is_zero = out.final_v < zero_v
+    tail_is_zero = out.final_v < zero_v
+    # a tail mostly at zero but ending high is a start at the very end of the record, not a re-collapse
+    final_is_zero = tail_is_zero and float(output[-MIN_DWELL:].min()) < zero_v
     n = t.size
     tail_start_s = float(t[n - max(MIN_SEGMENT, int(n * TAIL_FRACTION))])
     common = dict(supply=sup, output=out, t_supply_s=t_supply, supply_ref_v=supply_ref_v, ramp_v_per_s=ramp,
@@ -154,7 +156,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limit
         return StartupMetrics(**common, reference=None, t10_at_s=None, t90_at_s=None, delay_s=None, rise_s=None,
                               supply_at_start_v=None, settle_at_s=None, settle_s=None, settled=False,
                               overshoot_pct=None, peak_at_s=None, window=None)
-    high = state_levels(output).high_v if final_is_zero else out.final_v  # a re-collapse: its plateau
+    high = state_levels(output).high_v if tail_is_zero else out.final_v  # no settled level: the plateau
     ref = StateLevels(out.initial_v, high)
     h = out.hysteresis(ref.amplitude_v)
     t10 = first_crossing(t, output, ref.reference(0.1), h)
@@ -165,7 +167,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limit
     settle_at = settle = None
     settled = False
     overshoot = peak_at = window = None
-    if not final_is_zero:
+    if not tail_is_zero:
         settle_at = last_entry(t, output, out.final_v, abs(out.final_v) * limits.band_pct / 100.0)
         settled = settle_at is not None and settle_at <= tail_start_s
         if settle_at is not None and t_supply is not None:

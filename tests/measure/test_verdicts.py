@@ -122,3 +122,18 @@ def test_not_a_number_samples_are_left_out():
     holed = measure_arrays(T, _scope(SUPPLY, 1), out)
     assert holed.verdict == clean.verdict == "started"
     assert holed.delay_s == pytest.approx(clean.delay_s, rel=1e-6)
+
+
+def test_a_start_at_the_very_end_of_the_record_is_incomplete_not_a_recollapse():
+    late = 1.2 * first_order_step(T, tau_s=2e-6, delay_s=T[-1] - 5e-6)  # rises in the last 5 µs
+    r = _measure(late, expect_v=1.2)
+    assert r.verdict == "incomplete"
+
+
+def test_an_ideal_two_level_output_is_not_taken_for_codes():
+    # An exact 0 → 1.2 V step has two values only; its "code step" would be the whole amplitude,
+    # which would make every start look like noise (stuck at zero).
+    ideal = np.where(T > 80e-6, 1.2, 0.0)
+    r = measure_arrays(T, SUPPLY, ideal)
+    assert r.verdict == "started" and r.vout_final_v == 1.2
+    assert r.rise_s == pytest.approx(0.8 * DT, rel=1e-6)  # one sample: 10 % → 90 % by interpolation
