@@ -76,6 +76,11 @@ class Bench:
         self.supply = supply_cls(self.sessions["supply"], self.profiles["supply"], channel=s.channel)
         self.chamber = (Chamber(self.sessions["chamber"], self.profiles["chamber"])
                         if "chamber" in self.sessions else None)
+        self.switched_on = False  # whether this run ever switched the output on
+
+    def output_on(self) -> None:
+        self.switched_on = True
+        self.supply.on()
 
     def open(self) -> None:
         for session in self.sessions.values():
@@ -156,8 +161,8 @@ def run_plan(plan: Plan, campaign: Campaign, *, echo: Callable[[str], None] = pr
         report.aborted = "interrupted (Ctrl-C)" if isinstance(exc, KeyboardInterrupt) else str(exc)
         raise
     finally:
-        report.outputs_off_confirmed = bench.output_off()
-        if report.outputs_off_confirmed is False:
+        report.outputs_off_confirmed = bench.output_off(attempts=3 if bench.switched_on else 1)
+        if report.outputs_off_confirmed is False and bench.switched_on:
             echo("WARNING: the supply output could not be confirmed off: switch it off at the instrument.")
         journal.write("run_ended", stored=len(report.stored), retries=report.retries, aborted=report.aborted,
                       outputs_off=report.outputs_off_confirmed)
@@ -177,7 +182,7 @@ def _acquire_step(plan: Plan, bench: Bench, step: Step, attempt: int, notify) ->
     notify("configured", step)
     bench.scope.arm()
     notify("armed", step)
-    bench.supply.on()
+    bench.output_on()
     notify("powered", step)
     bench.scope.wait_complete()
     traces = {"supply": bench.scope.read(sc.supply_channel, deadline_s=sc.read_deadline_s),

@@ -98,8 +98,9 @@ class Session:
             raise self._mapped(exc, "open") from None
         except _RAW_LINK_ERRORS + (OSError,) as exc:
             raise ConnectionLost(f"{self.name}: cannot connect: {exc}") from None
-        except ValueError as exc:  # pyvisa's message for a malformed resource string
-            raise InstrumentError(f"{self.resource!r}: not a usable resource string: {exc}") from None
+        except ValueError as exc:  # pyvisa-py: this interface needs a package (PyUSB, PySerial, linux-gpib)
+            text = " ".join(str(exc).split())
+            raise InstrumentError(f"{self.resource!r}: cannot open this kind of resource here: {text}") from None
         res.timeout = self.timeout_s * 1000
         res.read_termination = self.read_termination
         res.write_termination = self.write_termination

@@ -10,7 +10,7 @@ import pytest
 from instruments.acquire import run_plan
 from instruments.plan import load_plan
 from instruments.sim.server import Fault
-from labtool.errors import BlockError, ConnectionLost, PlanError, ScpiError
+from labtool.errors import BlockError, ConnectionLost, InstrumentError, PlanError, ScpiError
 from labtool.store import Campaign
 
 PLAN = """
@@ -218,3 +218,18 @@ def test_bad_plans_are_refused_before_anything_is_driven(tmp_path, edit, message
     path.write_text(PLAN.format(scope="x", supply="y", chamber="z").replace(*edit))
     with pytest.raises(PlanError, match=message):
         load_plan(path)
+
+
+def test_output_that_will_not_switch_off_is_reported_loudly(bench, plan, tmp_path):
+    # A supply that ignores OUTPut OFF (stuck relay, front panel lock): the run stops and says so.
+    from instruments.acquire import Bench
+    lines = []
+    stuck = bench.supply._output
+    bench.supply._output = lambda on: stuck(True) if not on and bench.supply.output_on else stuck(on)
+    b = Bench(plan)
+    short_timeouts(b)
+    with Campaign.open(tmp_path / "camp", create=True) as camp:
+        with pytest.raises(InstrumentError, match="output still on after the off command"):
+            run_plan(plan, camp, bench=b, echo=lines.append)
+        assert stored_locators(camp) == []
+    assert any("could not be confirmed off: switch it off at the instrument" in line for line in lines)
