@@ -134,17 +134,18 @@ def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
 def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT) -> TablePosition | None:
     """Where the data starts, and the header/units rows just above it.
 
-    The field count is the most common one among mostly-numeric rows (ties: the earliest row's), so
-    a bad cell or a cut-off line later in the data does not move the start. The data starts at the
+    The field count is the most common one among all-numeric rows (ties: the earliest row's), so a
+    bad cell or a cut-off line later in the data does not move the start. The data starts at the
     first all-numeric row of that count followed by a mostly-numeric row (or by nothing).
     """
     nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
     numeric = [i for i in nonblank if _numericish(rows[i], number)]
-    if not numeric:
+    clean = [i for i in numeric if is_data_row(rows[i], number)]
+    if not clean:
         return None
-    counts = Counter(len(rows[i]) for i in numeric)
+    counts = Counter(len(rows[i]) for i in clean)
     top = max(counts.values())
-    n_fields = next(len(rows[i]) for i in numeric if counts[len(rows[i])] == top)
+    n_fields = next(len(rows[i]) for i in clean if counts[len(rows[i])] == top)
     numeric_set = set(numeric)
     pos = None
     for p, i in enumerate(nonblank):

@@ -72,7 +72,7 @@ def test_every_text_shape_reads_back_what_was_written(tmp_path, name):
 def test_time_in_any_unit_becomes_seconds(tmp_path, unit, factor):
     t = np.arange(40) * 2e-6
     vdd, vref = np.linspace(0, 1.8, 40), np.linspace(0, 1.2, 40)
-    path = _write(tmp_path, "t.csv", render(Shape(time_unit=(unit, factor)), t, [vdd, vref]))
+    path = _write(tmp_path, "t.csv", render(Shape(time_unit=(unit, factor)), t / factor, [vdd, vref]))
     (capture,) = read_path(path)
     np.testing.assert_allclose(capture.times(), t, rtol=1e-12, atol=1e-18)
     assert capture.time.uniform and capture.time.dt_s == pytest.approx(2e-6, rel=1e-12)

@@ -45,11 +45,10 @@ def number(value: float, decimal: str) -> str:
     return text.replace(".", ",") if decimal == "," else text
 
 
-def render(shape: Shape, t_s: np.ndarray, channels: list[np.ndarray]) -> bytes:
-    """File bytes for the time column (written in ``shape.time_unit``) and channels (as given)."""
+def render(shape: Shape, t_written: np.ndarray, channels: list[np.ndarray]) -> bytes:
+    """File bytes for the time column and channels, numbers as given (times in ``shape.time_unit``)."""
     header, units = header_cells(shape)
     rows = [header] + ([units] if units else [])
-    t_written = np.asarray(t_s) / shape.time_unit[1]
     for k in range(len(t_written)):
         rows.append([number(t_written[k], shape.decimal)] + [number(c[k], shape.decimal) for c in channels])
     if shape.delimiter == " ":
