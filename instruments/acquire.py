@@ -164,6 +164,8 @@ def run_plan(plan: Plan, campaign: Campaign, *, echo: Callable[[str], None] = pr
         report.outputs_off_confirmed = bench.output_off(attempts=3 if bench.switched_on else 1)
         if report.outputs_off_confirmed is False and bench.switched_on:
             echo("WARNING: the supply output could not be confirmed off: switch it off at the instrument.")
+        elif report.aborted and bench.switched_on:
+            echo("Stopped; the supply output is off.")
         journal.write("run_ended", stored=len(report.stored), retries=report.retries, aborted=report.aborted,
                       outputs_off=report.outputs_off_confirmed)
         bench.close()

@@ -106,7 +106,10 @@ class Session:
         res.write_termination = self.write_termination
         self._res = res
         _no_delay(res)
-        reply = self.query("*IDN?")
+        try:
+            reply = self.query("*IDN?")
+        except ConnectionLost as exc:  # pyvisa-py connects lazily: a refusal shows up here
+            raise ConnectionLost(f"{self.name}: cannot connect: {exc.message.split(': ', 2)[-1]}") from None
         self.identity = parse_idn(reply)
         if self.identity_pattern and not re.search(self.identity_pattern, str(self.identity)):
             self.close()

@@ -125,7 +125,7 @@ def test_refused_connection(profile):
     s.close()
     session = profile.session(f"TCPIP::127.0.0.1::{port}::SOCKET")
     session.timeout_s = 0.5
-    with pytest.raises(ConnectionLost):
+    with pytest.raises(ConnectionLost, match=r"cannot connect: \[Errno 111\] Connection refused"):
         session.open()
 
 

@@ -40,8 +40,8 @@ def run(args) -> int:
             try:
                 report = run_plan(plan, campaign, echo=lambda line: print(line, file=sys.stderr))
             except (LabtoolError, KeyboardInterrupt):
-                print(f"labtool acquire: stopped; supply output switched off. Run the same command again to "
-                      f"resume where it stopped (journal in {campaign.root / 'journal'})", file=sys.stderr)
+                print(f"labtool acquire: run the same command again to resume where it stopped "
+                      f"(journal in {campaign.root / 'journal'})", file=sys.stderr)
                 raise
     finally:
         if running is not None:
