@@ -107,7 +107,6 @@ def test_readable_table_without_json(campaign, capsys):
 
 
 def test_files_are_read_with_explicit_columns_and_measured(tmp_path, capsys):
-    pytest.importorskip("labtool.ingest")
     cap = _capture("p05", 1.2, 40)
     path = tmp_path / "ZR24A_p05.csv"
     t = cap.times()

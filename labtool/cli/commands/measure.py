@@ -14,6 +14,7 @@ from pathlib import Path
 
 from labtool.errors import LabtoolError, MeasurementError
 from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
+from labtool.ingest import IngestOptions, read_path
 from labtool.measure import Limits
 from labtool.measure.batch import measure_campaign, result_row
 from labtool.stats.sources import text_table
@@ -59,8 +60,6 @@ def is_campaign(path: str) -> bool:
 
 def measure_file(options, limits: Limits, path: str) -> list[tuple[str, dict | str]]:
     """Worker: read one file and measure each of its captures: ("ok", row) or ("error", message)."""
-    from labtool.ingest import read_path
-
     out = []
     for capture in read_path(path, options):
         try:
@@ -73,12 +72,6 @@ def measure_file(options, limits: Limits, path: str) -> list[tuple[str, dict | s
 def _file_rows(paths: list[str], args, limits: Limits, scheduler):
     """Yield ("ok", row) / ("error", message) for every capture of every file, in input order."""
     if not paths:
-        return
-    try:
-        from labtool.ingest import IngestOptions
-    except ImportError:
-        for path in paths:
-            yield "error", f"{path}: cannot read capture files (the importers are not installed)"
         return
     work = partial(measure_file, IngestOptions(supply=args.supply, output=args.output), limits)
     for outcome in run_batch(work, paths, scheduler, what="measure", unit="file"):
