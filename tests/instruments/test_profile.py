@@ -106,3 +106,39 @@ def test_bench_check_names_what_failed(bench, profile, tmp_path):
     assert "no reply to ':OUTPut1:STATus?'" in by_op["output_state"].detail
     assert '-113,"Undefined header' in by_op["output_state"].detail
     assert by_op["read_temperature"].status == "absent"
+
+
+def test_poll_synchronisation_waits_for_the_status_bit(bench, sessions, profile):
+    # wait_complete by status polling instead of *OPC?: the simulated scope holds STATus:OPERation
+    # bit 3 (SWEeping; SCPI-1999 STATus:OPERation register, from memory) while armed.
+    import dataclasses
+    from instruments.profile import Operation
+    from instruments.scope import Scope
+    from instruments.supply import Supply
+    poll = Operation("wait_complete", "", sync="poll", poll_query=":STATus:OPERation:CONDition?", poll_mask=8,
+                     poll_done="clear", timeout_s=5.0)
+    tables = {k: dict(v) for k, v in profile.tables.items()}
+    tables["scope"]["wait_complete"] = poll
+    polled = dataclasses.replace(profile, tables=tables)
+    scope, supply = Scope(sessions["scope"], polled), Supply(sessions["supply"], polled)
+    scope.configure(channels={1: (4.0, 0.0)}, record_s=1e-3, points=500, pretrigger_s=0.0, trigger_channel=1,
+                    trigger_level_v=0.18)
+    supply.configure(voltage_v=1.8, current_limit_a=0.01, ovp_v=2.0, ramp_s=1e-4)
+    scope.arm()
+    assert int(sessions["scope"].query(":STATus:OPERation:CONDition?")) & 8 == 8
+    with pytest.raises(InstrumentTimeout, match="wait_complete not complete after 0.2 s"):
+        dataclasses.replace(poll, timeout_s=0.2).run(sessions["scope"])  # nothing triggered yet
+    supply.on()
+    scope.wait_complete()
+    assert len(scope.read(1).values) == 500
+    supply.off()
+
+
+def test_esr_reports_command_error_and_clears_on_read(sessions):
+    # IEEE 488.2 §11.5.1: an undefined header sets bit 5 (command error); *ESR? clears on read.
+    from instruments.scpi import decode_esr
+    s = sessions["scope"]
+    s.write(":NOT:A:COMMand")
+    assert "command_error" in decode_esr(int(s.query("*ESR?")))
+    assert decode_esr(int(s.query("*ESR?"))) == frozenset()
+    s.drain_errors()
