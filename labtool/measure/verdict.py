@@ -10,7 +10,11 @@ VERDICTS = ("no_supply", "stuck_at_zero", "recollapse", "incomplete", "wrong_lev
 
 
 def decide(m: StartupMetrics, limits: Limits) -> tuple[str, dict]:
-    """(verdict, evidence) by the rules of issue #3, checked in the order of :data:`VERDICTS`."""
+    """(verdict, evidence) by the rules of issue #3, checked in the order of :data:`VERDICTS`.
+
+    ``no_supply`` also covers a supply that never crosses its own reference level (possible only
+    when ``supply_ref`` is given in volts): without a valid supply there is no instant to measure from.
+    """
     if limits.supply_min_v is not None and m.supply_peak_v < limits.supply_min_v:
         return "no_supply", {"supply_peak_v": m.supply_peak_v, "supply_min_v": limits.supply_min_v}
     if m.t_supply_s is None:

@@ -137,3 +137,9 @@ def test_an_ideal_two_level_output_is_not_taken_for_codes():
     r = measure_arrays(T, SUPPLY, ideal)
     assert r.verdict == "started" and r.vout_final_v == 1.2
     assert r.rise_s == pytest.approx(0.8 * DT, rel=1e-6)  # one sample: 10 % → 90 % by interpolation
+
+
+def test_no_supply_when_the_supply_never_reaches_a_reference_given_in_volts():
+    r = _measure(1.2 * first_order_step(T, tau_s=5e-6, delay_s=80e-6), supply_ref="1.9")
+    assert r.verdict == "no_supply" and r.t_supply_s is None and r.delay_s is None
+    assert r.evidence["supply_ref_v"] == 1.9
