@@ -51,29 +51,30 @@ def _squeeze_blanks(body: bytes) -> bytes:
 
 def parse_body(data: bytes, layout: TextLayout, path: str) -> list[np.ndarray]:
     """The numeric columns of the body as float64 arrays (missing values NaN)."""
-    body = data[layout.body_offset:]
-    if layout.delimiter == " ":
-        body = _squeeze_blanks(body)
+    # A zero-copy view of the body; whitespace-delimited text is rewritten to single spaces first.
+    body = (_squeeze_blanks(data[layout.body_offset:]) if layout.delimiter == " "
+            else pa.py_buffer(data).slice(layout.body_offset))
     names = [f"c{k}" for k in range(layout.n_fields)]
     wanted = names[:len(layout.names)]
     try:
         table = _arrow_read(body, names, wanted, layout)
     except (pa.ArrowInvalid, pa.ArrowTypeError) as exc:
         # Lines of only blanks are empty to a reader but not to pyarrow: drop them and try once more.
-        cleaned = _BLANK_LINE.sub(b"", body)
-        if cleaned == body:
-            raise _locate_problem(body, layout, path, exc) from None
+        text = body.to_pybytes() if isinstance(body, pa.Buffer) else body
+        cleaned = _BLANK_LINE.sub(b"", text)
+        if cleaned == text:
+            raise _locate_problem(text, layout, path, exc) from None
         try:
             table = _arrow_read(cleaned, names, wanted, layout)
         except (pa.ArrowInvalid, pa.ArrowTypeError) as exc2:
-            raise _locate_problem(body, layout, path, exc2) from None
+            raise _locate_problem(text, layout, path, exc2) from None
     return [table.column(n).to_numpy(zero_copy_only=False).astype(np.float64, copy=False) for n in wanted]
 
 
 _BLANK_LINE = re.compile(rb"(?<=[\r\n])[ \t]+(?=[\r\n]|\Z)")
 
 
-def _arrow_read(body: bytes, names: list[str], wanted: list[str], layout: TextLayout) -> pa.Table:
+def _arrow_read(body: bytes | pa.Buffer, names: list[str], wanted: list[str], layout: TextLayout) -> pa.Table:
     return pacsv.read_csv(
         pa.BufferReader(body),
         read_options=pacsv.ReadOptions(column_names=names, block_size=4 << 20),
@@ -104,12 +105,15 @@ def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) 
     return InputError(path, f"cannot parse the numeric table: {exc}", line=layout.first_data_line)
 
 
-def _row_locator(body: bytes, first_line: int):
-    """Map a data row index to its line number, skipping blank lines like the parser does (lazily)."""
+def _row_locator(data: bytes, layout: TextLayout):
+    """Map a data row index to its line number, skipping blank lines like the parser does (only
+    computed when an error needs it)."""
     cache: list[int] = []
+    first_line = layout.first_data_line
 
     def line_of(row: int) -> int:
         if not cache:
+            body = data[layout.body_offset:]
             cache.extend(k for k, raw in enumerate(body.splitlines(), start=first_line) if raw.strip())
         return cache[row] if row < len(cache) else first_line + row
 
@@ -126,7 +130,7 @@ def read_csv(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
     data = normalise_encoding(data, path)
     layout = sniff(data, path)
     columns = parse_body(data, layout, path)
-    line_of = _row_locator(data[layout.body_offset:], layout.first_data_line)
+    line_of = _row_locator(data, layout)
     header_line = layout.header_line or layout.first_data_line
 
     def place(row: int | None, col: int | None) -> dict:

@@ -20,7 +20,7 @@ from labtool.errors import InputError, UsageError
 from labtool.units import parse_unit
 
 HEAD_BYTES = 256 * 1024
-HEAD_LINES = 2000
+HEAD_LINES = 256  # lines the sniffer looks at (scope preambles are a few dozen)
 SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
 
 # Cells that stand for a missing or non-finite value; pyarrow reads the same set.
@@ -37,6 +37,7 @@ DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace
 
 _COMMENT = "#%!*/;"
 _LINE_END = re.compile(rb"\r\n|\n|\r")
+_NON_BLANK = re.compile(rb"\S")
 _BRACKET = re.compile(r"^(.*?)\s*[\[(]\s*([^\[\]()]*?)\s*[\])]\s*$")
 _SPICE = re.compile(r"^[vViI]\(.+\)$")
 # Lower-case unit suffixes after an underscore, as lab scripts name columns (t_us, vdd_v, idd_ua).
@@ -293,7 +294,7 @@ def split_fields(text: str, delimiter: str) -> list[str]:
 def sniff(data: bytes, path: str) -> TextLayout:
     """Find delimiter, decimal mark, preamble, header and units of a text export (already decoded
     from gzip and with any byte-order mark removed)."""
-    if not data.strip():
+    if _NON_BLANK.search(data) is None:
         raise InputError(path, "empty file")
     nul = data.find(b"\x00", 0, HEAD_BYTES)
     if nul >= 0:
