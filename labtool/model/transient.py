@@ -28,9 +28,15 @@ def default_stop(design, ramp_s: float) -> float:
 
 
 def _profile_array(profile: Callable) -> Callable[[np.ndarray], np.ndarray]:
-    """Accept a supply profile written for scalars or for arrays."""
+    """Accept a supply profile written for arrays, or else for scalars (called point by point)."""
     def supply(t):
         t = np.asarray(t, dtype=float)
+        try:
+            v = np.asarray(profile(t), dtype=float)
+            if v.shape == t.shape:
+                return v
+        except (TypeError, ValueError):  # a scalar-only profile (``if t < …``)
+            pass
         return np.array([float(profile(float(x))) for x in t.ravel()]).reshape(t.shape)
     return supply
 
@@ -46,7 +52,7 @@ def run_transient(design, *, ramp_s: float, temperature_c: float, t_stop_s: floa
     if supply_profile is None:
         supply, bps = linear_ramp(p["vdd_v"], ramp_s), (ramp_s,)
     else:
-        supply, bps = _profile_array(supply_profile), ()
+        supply, bps = _profile_array(supply_profile), (ramp_s,)  # a ramp's corner is the likely kink
     circ = make_circuit(p, 1, supply, bps)
     rec = integrate(circ, t_stop_s, n_points, tuple(record), rtol=p["rtol"], atol=p["atol_v"])
     return rec, circ
