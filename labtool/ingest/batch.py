@@ -26,8 +26,16 @@ class IngestReport:
     files: int = 0  # files read
 
 
+def _is_capture_name(name: str) -> bool:
+    """A capture file by its name; run sheets called ``manifest.*`` are never captures."""
+    lowered = name.lower()
+    return (not lowered.startswith(".") and lowered.endswith(CAPTURE_EXTENSIONS)
+            and lowered.split(".")[0] != "manifest")
+
+
 def find_files(paths: Iterable[str], *, exclude: Iterable[str] = ()) -> tuple[list[str], list[tuple[str, str]]]:
-    """Files named directly, and capture files found in folders (recursive, sorted, hidden ones skipped)."""
+    """Files named directly, and capture files found in folders (recursive, sorted; hidden files and
+    ``manifest.*`` run sheets skipped)."""
     skip = {os.path.realpath(p) for p in exclude}
     files: list[str] = []
     problems: list[tuple[str, str]] = []
@@ -46,7 +54,7 @@ def find_files(paths: Iterable[str], *, exclude: Iterable[str] = ()) -> tuple[li
             for root, dirs, names in os.walk(path):
                 dirs[:] = sorted(d for d in dirs if not d.startswith("."))
                 for name in sorted(names):
-                    if not name.startswith(".") and name.lower().endswith(CAPTURE_EXTENSIONS):
+                    if _is_capture_name(name):
                         keep(os.path.join(root, name))
                         found += 1
             if not found:

@@ -43,12 +43,13 @@ def test_folders_are_walked_recursively_and_failures_do_not_stop_the_batch(tmp_p
     assert problems == [] and not any((tmp_path / "camp" / "tmp").iterdir())
 
 
-def test_find_files_skips_the_excluded_manifest_and_reports_missing_paths(tmp_path, monkeypatch):
+def test_find_files_skips_manifests_and_reports_missing_paths(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     runs = _folder(tmp_path)
-    (runs / "manifest.csv").write_text("file,lot\na.csv,ZR24A\n")
+    (runs / "runs.csv").write_text("file,lot\na.csv,ZR24A\n")
+    (runs / "sub" / "manifest.xlsx").write_bytes(b"")  # a run sheet by its name: never read as a capture
     (tmp_path / "empty").mkdir()
-    files, problems = find_files(["runs", "runs/a.csv", "missing.csv", "empty"], exclude=["runs/manifest.csv"])
+    files, problems = find_files(["runs", "runs/a.csv", "missing.csv", "empty"], exclude=["runs/runs.csv"])
     assert files == ["runs/a.csv", "runs/sub/b.csv", "runs/sub/broken.csv"]
     assert problems[0] == ("missing.csv", "missing.csv: no such file or folder")
     assert problems[1][1].startswith("empty: no capture files in this folder (")
