@@ -43,12 +43,19 @@ def condition_field(key: str) -> tuple[str, str | None]:
     return key.strip(), None
 
 
+# In a preamble, only unmistakable condition keys count: there "VDD: CH1" or "X: 10 div" are
+# instrument settings, not conditions.
+_PREAMBLE_KEYS = frozenset(CONDITION_TYPES) | {"temperature", "temp", "temp_c", "ramp", "ramp_time",
+                                               "lot_id", "wafer_id", "part_id"}
+
+
 def normalise_pairs(pairs: Mapping[str, object], *, known_only: bool) -> dict[str, tuple[str, str]]:
-    """field → (value text, key as written). With ``known_only`` unknown keys are left out."""
+    """field → (value text, key as written). With ``known_only`` (a preamble) only unmistakable
+    condition keys are kept."""
     out: dict[str, tuple[str, str]] = {}
     for key, raw in pairs.items():
         field, unit = condition_field(str(key))
-        if known_only and field not in CONDITION_TYPES:
+        if known_only and (field not in CONDITION_TYPES or _normal(split_name_unit(str(key))[0]) not in _PREAMBLE_KEYS):
             continue
         value = "" if raw is None else str(raw).strip()
         if unit and NUMBER_ANY.match(value):

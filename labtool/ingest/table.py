@@ -139,7 +139,8 @@ def _time_base(table: RawTable, t_col: int | None, index_col: int | None, factor
             raise InputError(path, f"column {table.names[index_col]!r} is a sample index and the preamble "
                                    f"gives no sample interval (a line such as 'Sample Interval,2e-9')",
                              **table.place(None, index_col))
-        t0 += float(table.columns[index_col][0]) * dt
+        if start is None:  # without a start time, index k is at k·dt
+            t0 = float(table.columns[index_col][0]) * dt
     elif dt is None:
         raise InputError(path, "no time column (a column in seconds or named time) and no sample interval "
                                "in the preamble", **table.place(None, None))

@@ -165,3 +165,17 @@ def test_explicit_column_picks_win_over_names(tmp_path):
     options = IngestOptions(supply="ch1", output="CH2", enable="CH3")
     (capture,) = read_path(_write(tmp_path, "picks.csv", text.encode()), options)
     assert [(c.name, c.role) for c in capture.channels] == [("CH1", "supply"), ("CH2", "output"), ("CH3", "enable")]
+
+
+def test_instrument_settings_in_a_preamble_are_not_conditions(tmp_path):
+    text = "VDD: CH1\nX: 10 div\nTemp: 25\ntime,vdd,vref\n0,0,0\n1e-6,1.8,1.2\n"
+    (capture,) = read_path(_write(tmp_path, "s.csv", text.encode()))
+    assert capture.conditions.vdd_v is None and capture.conditions.die_x is None
+    assert capture.conditions.temperature_c == 25.0
+    assert capture.provenance.metadata["VDD"] == "CH1"
+
+
+def test_a_one_based_index_without_a_start_time(tmp_path):
+    text = "Sample Interval,1e-6\nindex,vdd,vref\n1,0,0\n2,1.8,1.2\n3,1.8,1.2\n"
+    (capture,) = read_path(_write(tmp_path, "i.csv", text.encode()))
+    assert capture.time.t0_s == 1e-6 and capture.time.dt_s == 1e-6
