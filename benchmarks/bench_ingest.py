@@ -2,7 +2,8 @@
 
 Invented data: time, a 1.8 V supply ramp and a 1.2 V reference as an 8-bit scope writes them. The
 figures: ``read_path`` end to end, its stages, and a bare ``pyarrow.csv.read_csv`` of the same body
-(the floor), best of several runs on the shared machine.
+(the floor), best of several runs on the shared machine; then a batch ingest of the demo folder in
+one process and in two worker processes.
 """
 
 from __future__ import annotations
@@ -17,9 +18,11 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
-from labtool.ingest import IngestOptions, read_path
+from labtool.execute import Scheduler
+from labtool.ingest import IngestOptions, ingest_paths, load_manifest, read_path
 from labtool.ingest.csv_reader import parse_body
 from labtool.ingest.sniff import sniff
+from labtool.store import Campaign
 
 N = 1_000_000
 
@@ -65,6 +68,23 @@ def main() -> None:
             pa.BufferReader(body), read_options=pacsv.ReadOptions(column_names=["t", "a", "b"]),
             convert_options=pacsv.ConvertOptions(column_types={k: pa.float64() for k in "tab"})))
         print(f"  bare pyarrow.csv.read_csv of the same body: {bare * 1e3:.0f} ms")
+        demo_batch(Path(tmp))
+
+
+def demo_batch(tmp: Path) -> None:
+    """``ingest_paths`` of the demo folder (31 files, 36 captures) into a fresh campaign."""
+    samples = Path(__file__).resolve().parents[1] / "sample_runs"
+    manifest = load_manifest(str(samples / "manifest.csv"))
+    for scheduler in (Scheduler("local", 1), Scheduler("local", 2)):
+        runs = []
+        for k in range(3):
+            with Campaign.open(tmp / f"camp-{scheduler.workers}-{k}", create=True) as camp:
+                t0 = time.perf_counter()
+                report = ingest_paths([str(samples)], camp, IngestOptions(manifest=manifest), scheduler,
+                                      exclude=[str(samples / "manifest.csv")])
+                runs.append(time.perf_counter() - t0)
+        print(f"ingest_paths of sample_runs ({report.files} files, {len(report.added)} captures), "
+              f"{scheduler}: {min(runs):.2f} s")
 
 
 if __name__ == "__main__":
