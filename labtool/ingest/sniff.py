@@ -23,7 +23,8 @@ HEAD_BYTES = 256 * 1024
 HEAD_LINES = 256  # lines the sniffer looks at (scope preambles are a few dozen)
 SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
 
-# Cells that stand for a missing or non-finite value; pyarrow reads the same set.
+# Cells that stand for a missing or non-finite value (lower case, for sniffing). NULL_TOKENS are what
+# pyarrow is told to read as missing; "inf" it parses as a number, flagged later like SCPI values.
 NA_TOKENS = frozenset({"", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "inf", "+inf", "-inf",
                        "infinity", "+infinity", "-infinity"})
 NULL_TOKENS = ("", "nan", "NaN", "NAN", "-nan", "+nan", "NA", "N/A", "n/a", "na", "null", "NULL", "None", "none")
@@ -234,7 +235,6 @@ class TextLayout:
     names: tuple[str, ...]
     units: tuple[str | None, ...]
     header_line: int | None  # 1-based line numbers
-    units_line: int | None
     first_data_line: int
     body_offset: int  # byte offset of the first data line
     n_fields: int
@@ -283,8 +283,8 @@ def split_fields(text: str, delimiter: str) -> list[str]:
     if delimiter != " ":
         return text.split(delimiter)
     tokens: list[str] = []
-    for tok in text.split():  # "Time (s)" stays one header cell
-        if tokens and tok[0] in "[(" and not NUMBER_ANY.match(tok):
+    for tok in text.split():  # "Time (s)" stays one header cell; a units row "(s) (V)" stays two
+        if tokens and tok[0] in "[(" and tokens[-1][0] not in "[(" and not NUMBER_ANY.match(tok):
             tokens[-1] += " " + tok
         else:
             tokens.append(tok)
@@ -321,7 +321,6 @@ def sniff(data: bytes, path: str) -> TextLayout:
     return TextLayout(
         delimiter=delimiter, decimal=decimal, names=tuple(names), units=tuple(units),
         header_line=None if where.header is None else where.header + 1,
-        units_line=None if where.units is None else where.units + 1,
         first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
         preamble=pairs, notes=tuple(notes))
 

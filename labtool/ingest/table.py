@@ -64,8 +64,11 @@ def _key(text: str) -> str:
     return re.sub(r"[^0-9a-z#]+", "_", text.lower()).strip("_")
 
 
-def _meta_value(table: RawTable, keys: frozenset[str], unit: str) -> tuple[float, str] | None:
-    """A quantity from the preamble whose key is one of ``keys`` (unit in the key or the value)."""
+def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: bool = True) -> tuple[float, str] | None:
+    """A quantity from the preamble whose key is one of ``keys`` (unit in the key or the value).
+
+    Not ``strict``: a value that is no quantity (a clock time under "Start Time") counts as absent.
+    """
     for key, value in table.metadata.items():
         name, key_unit = split_name_unit(key)
         if _key(name) not in keys:
@@ -79,26 +82,23 @@ def _meta_value(table: RawTable, keys: frozenset[str], unit: str) -> tuple[float
         try:
             return parse_quantity(text, unit, what=key), key
         except UsageError:
+            if not strict:
+                return None
             raise InputError(table.source_path, f"{key}: {value!r} is not a quantity in {unit}",
                              **table.metadata_place(key)) from None
     return None
 
 
 def _sample_interval(table: RawTable) -> float | None:
-    found = _meta_value(table, _INTERVAL_KEYS, "s")
-    if found is not None:
-        dt, key = found
-        if not dt > 0:
-            raise InputError(table.source_path, f"{key}: the sample interval must be positive",
-                             **table.metadata_place(key))
-        return dt
-    found = _meta_value(table, _RATE_KEYS, "Hz")
-    if found is not None:
-        rate, key = found
-        if not rate > 0:
-            raise InputError(table.source_path, f"{key}: the sample rate must be positive",
-                             **table.metadata_place(key))
-        return 1.0 / rate
+    """The sample interval from the preamble, given directly or as a sample rate."""
+    for keys, unit, what in ((_INTERVAL_KEYS, "s", "interval"), (_RATE_KEYS, "Hz", "rate")):
+        found = _meta_value(table, keys, unit)
+        if found is not None:
+            value, key = found
+            if not value > 0:
+                raise InputError(table.source_path, f"{key}: the sample {what} must be positive",
+                                 **table.metadata_place(key))
+            return value if what == "interval" else 1.0 / value
     return None
 
 
@@ -132,7 +132,7 @@ def _time_base(table: RawTable, t_col: int | None, index_col: int | None, factor
                              **table.place(k, t_col))
         return TimeBase.from_times(t)
     dt = _sample_interval(table)
-    start = _meta_value(table, _START_KEYS, "s")
+    start = _meta_value(table, _START_KEYS, "s", strict=False)
     t0 = start[0] if start else 0.0
     if index_col is not None:
         if dt is None:

@@ -179,3 +179,18 @@ def test_a_one_based_index_without_a_start_time(tmp_path):
     text = "Sample Interval,1e-6\nindex,vdd,vref\n1,0,0\n2,1.8,1.2\n3,1.8,1.2\n"
     (capture,) = read_path(_write(tmp_path, "i.csv", text.encode()))
     assert capture.time.t0_s == 1e-6 and capture.time.dt_s == 1e-6
+
+
+def test_whitespace_units_row_in_parentheses(tmp_path):
+    text = "# run 12\ntime   vdd   vref\n(us)   (V)   (mV)\n0 0 0\n1 1.8 1200\n2 1.8 1200\n"
+    (capture,) = read_path(_write(tmp_path, "ws.dat", text.encode()))
+    assert capture.time.dt_s == 1e-6
+    assert capture.channel("output").values.tolist() == [0.0, 1.2, 1.2]
+    assert capture.provenance.metadata["notes"] == "run 12"
+
+
+def test_a_clock_time_under_start_time_is_not_the_time_origin(tmp_path):
+    text = "Start Time: 09:14:02\nSample Interval: 1 us\nSample,vdd,vref\n0,0,0\n1,1.8,1.2\n"
+    (capture,) = read_path(_write(tmp_path, "clock.csv", text.encode()))
+    assert capture.time.t0_s == 0.0 and capture.time.dt_s == 1e-6
+    assert capture.provenance.metadata["Start Time"] == "09:14:02"
