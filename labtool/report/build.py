@@ -128,13 +128,36 @@ def _group_plots(job: _Job):
 
 
 def _part_plots(job: _Job):
+    """A triage sheet: per ramp time of the part (failing ones first), its traces against the lot's."""
     part = _load_traces(job.root, job.records, job.rows)
     lot = _load_traces(job.root, job.baseline_records, job.baseline_rows)
+    ramp_of = {**_ramps_by_id(job.rows), **_ramps_by_id(job.baseline_rows)}
+    panels = []
+    for ramp in triage_ramps(job.rows):
+        mine = [tr for tr in part if ramp_of.get(tr.label) == ramp]
+        theirs = [tr for tr in lot if ramp_of.get(tr.label) == ramp]
+        title = "all set-ups" if ramp is None else f"ramp {format_si(ramp, 's')}"
+        panels.append(plots.TriagePanel(f"{title} · lot n = {len(theirs)}", mine, envelope(theirs)))
     lot_name = str(job.rows["lot"].iloc[0]) if "lot" in job.rows.columns else "lot"
-    sheet = plots.triage_sheet(part, envelope(lot), job.hypotheses, job.rows, part_label=job.label,
-                               lot_label=f"{lot_name} (n = {len(lot)})")
-    return [(sheet, f"Triage sheet of returned part {job.label}: its traces against its lot at the same "
-                    "set-ups, its captures and the ranked hypotheses.")]
+    sheet = plots.triage_sheet(panels, job.hypotheses, job.rows, part_label=job.label, lot_label=lot_name)
+    return [(sheet, f"Triage sheet of returned part {job.label}: its traces against its lot at the same ramp "
+                    "times, its captures and the ranked hypotheses.")]
+
+
+def _ramps_by_id(rows: pd.DataFrame | None) -> dict:
+    if rows is None or "ramp_s" not in rows.columns:
+        return {} if rows is None else {cid: None for cid in rows["capture_id"]}
+    return {cid: (None if pd.isna(r) else float(r)) for cid, r in zip(rows["capture_id"], rows["ramp_s"])}
+
+
+def triage_ramps(rows: pd.DataFrame, limit: int = 3) -> list:
+    """The part's ramp times to draw: those with a failure first, then the others, at most ``limit``."""
+    if "ramp_s" not in rows.columns or rows["ramp_s"].isna().all():
+        return [None]
+    failing = rows[rows["verdict"] != "started"]["ramp_s"].dropna().unique()
+    others = rows["ramp_s"].dropna().unique()
+    ordered = list(dict.fromkeys([*sorted(map(float, failing)), *sorted(map(float, others))]))
+    return sorted(ordered[:limit])
 
 
 def _overlay_sets(job: _Job):
@@ -234,13 +257,14 @@ def _returned_parts(table: pd.DataFrame) -> list[str]:
 def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=None, *,
                  scheduler: Scheduler | None = None, spec_max_delay_s: float | None = None,
                  predictions: pd.DataFrame | None = None, model_samples: int = 200, seed: int = 1,
-                 title: str | None = None) -> ReportFiles:
+                 parts: Sequence[str] = (), title: str | None = None) -> ReportFiles:
     """Write ``out_dir/report.html``, ``out_dir/report.xlsx`` and ``out_dir/plots/*.png``.
 
     ``campaign``: a campaign path, an open Campaign, or a measurement table (then no waveform plots).
     ``design``: a design file or Design; the model's Monte Carlo at the measured set-ups (``model_samples``
     per set-up, ``seed``) gives the predicted distributions. ``predictions`` (a predictions table)
     may be given instead. ``spec_max_delay_s`` defaults to the measurement limits' ``max_delay_s``.
+    Parts tagged returned get a triage sheet, and so do ``parts`` (``LOT/PART``).
     """
     by = parse_keys(by)
     out = Path(out_dir)
@@ -265,7 +289,7 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
         model_failed = [(f"Monte Carlo at ramp_s={r:g}, temperature_c={t:g}", why)
                         for (r, t), why in (predictions.attrs.get("failed", []) if predictions is not None else [])]
         comparisons = comparison_table(compare(table, predictions, by)) if predictions is not None else None
-        returned = _returned_parts(table)
+        returned = sorted(set(_returned_parts(table)) | set(parts))
         jobs = _jobs(table, by, root, camp, out / "plots", predictions, spec_max_delay_s, returned, design)
     finally:
         if camp is not None and camp is not campaign:
@@ -320,11 +344,14 @@ def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) 
         mine = table[labels == part]
         lot = table[(labels != part) & (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False)] \
             if "lot" in table.columns else table[labels != part]
-        same_setup = lot[pd.Series(_setup_cells(lot), index=lot.index).isin(set(_setup_cells(mine)))] \
-            if set(SETUP) <= set(table.columns) else lot
-        baseline = (same_setup if len(same_setup) else lot)
-        baseline = baseline[baseline["verdict"].isin(CAME_UP)]
-        picked = baseline[baseline["capture_id"].isin(pick_traces(baseline.set_index("capture_id")["verdict"]))]
+        baseline = lot[lot["verdict"].isin(CAME_UP)]
+        if "ramp_s" in baseline.columns:  # the lot at the part's ramp times, up to a panel's worth each
+            baseline = baseline[baseline["ramp_s"].isin(triage_ramps(mine))]
+            chosen = [cid for _, at in baseline.groupby("ramp_s")
+                      for cid in pick_traces(at.set_index("capture_id")["verdict"], MAX_TRACES // 3)]
+        else:
+            chosen = pick_traces(baseline.set_index("capture_id")["verdict"])
+        picked = baseline[baseline["capture_id"].isin(chosen)]
         report = triage(table, part, design=design)
         jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, hypotheses=report.hypotheses,
                          records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),

@@ -519,41 +519,47 @@ def evidence_text(evidence) -> str:
 
 
 def _short(v) -> str:
-    return f"{v:.4g}" if isinstance(v, float) else str(v)
+    if isinstance(v, float):
+        return f"{v:.4g}"
+    if isinstance(v, Mapping):
+        return "{" + ", ".join(f"{k}: {_short(x)}" for k, x in v.items()) + "}"
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_short(x) for x in v) + "]"
+    return str(v)
 
 
-def triage_sheet(part_traces: Sequence[Trace], lot_envelope: Envelope | None, hypotheses: Sequence,
-                 captures: pd.DataFrame, *, part_label: str, lot_label: str = "lot") -> Plot:
-    """One A4 page for a returned part: its traces against its lot's envelope, its captures with
-    verdicts, and the ranked hypotheses with their evidence and the next bench experiment."""
+@dataclass(frozen=True)
+class TriagePanel:
+    """One panel of a triage sheet: the part's traces at one set-up against its lot's envelope there."""
+
+    title: str
+    part: Sequence[Trace]
+    lot: Envelope | None = None
+
+
+def triage_sheet(panels: Sequence[TriagePanel], hypotheses: Sequence, captures: pd.DataFrame, *,
+                 part_label: str, lot_label: str = "lot") -> Plot:
+    """One A4 page for a returned part: its traces against its lot's envelope (a panel per set-up,
+    e.g. per ramp time, at most three), its captures with verdicts, and the ranked hypotheses with
+    their evidence and the next bench experiment."""
     with rc_context(style.RC):
         fig = _figure(style.FIGSIZE_A4)
         n_rows = min(len(captures), _MAX_TABLE_ROWS)
-        grid = fig.add_gridspec(3, 1, height_ratios=(1.6, 0.3 + 0.075 * n_rows, 1.6))
-        ax = fig.add_subplot(grid[0])
-        spans = [tr.t_s for tr in part_traces] + ([lot_envelope.t_s] if lot_envelope is not None else [])
-        factor, unit = time_scale([np.max(np.abs(s)) for s in spans if s.size] or [1e-6])
-        if lot_envelope is not None:
-            _draw_envelope(ax, lot_envelope, factor, label=f"{lot_label} median")
-        for tr in part_traces:
-            vs = style.verdict_style(tr.verdict)
-            ax.plot(tr.t_s / factor, tr.output_v, color=vs.colour, linewidth=1.3, gid="part_trace")
-            ev = tr.events().get("cross90")
-            if ev:
-                ax.plot(ev[0] / factor, ev[1], marker=vs.marker, color=vs.colour, markeredgecolor=style.INKS.ink)
+        grid = fig.add_gridspec(3, 1, height_ratios=(1.25, 0.3 + 0.075 * n_rows, 1.9))
+        shown = list(panels)[:3] or [TriagePanel("no waveforms", ())]
+        top = grid[0].subgridspec(1, len(shown))
+        axes = [fig.add_subplot(top[0, i]) for i in range(len(shown))]
+        for ax, panel in zip(axes, shown):
+            _triage_panel(ax, panel, lot_label)
+        axes[0].set_ylabel("reference output [V]")
+        verdicts = [tr.verdict for p in shown for tr in p.part]
         handles = [Line2D([], [], color=style.INKS.ink, linewidth=2.4, label=f"{lot_label} median"),
                    Patch(color=style.INKS.band, label=f"{lot_label} p05–p95")]
-        for v in style.verdict_order([tr.verdict for tr in part_traces]):
+        for v in style.verdict_order(verdicts):
             vs = style.verdict_style(v)
             handles.append(Line2D([], [], color=vs.colour, marker=vs.marker, markeredgecolor=style.INKS.ink,
                                   label=f"{part_label}: {vs.label}"))
-        ax.legend(handles=handles, loc="lower right", fontsize=7.5)
-        if not part_traces:
-            ax.text(0.5, 0.5, "no waveforms available for this part", transform=ax.transAxes, ha="center",
-                    color=style.INKS.slate)
-        ax.set_xlabel(f"time from supply valid [{unit}]")
-        ax.set_ylabel("reference output [V]")
-        ax.set_title(f"Returned part {part_label} against {lot_label}")
+        axes[-1].legend(handles=handles, loc="center right", fontsize=7)
 
         tab = fig.add_subplot(grid[1])
         tab.set_axis_off()
@@ -563,8 +569,27 @@ def triage_sheet(part_traces: Sequence[Trace], lot_envelope: Envelope | None, hy
         hyp.set_axis_off()
         rows = [hypothesis_fields(h) for h in hypotheses]
         _hypotheses_block(hyp, rows)
-        fig.suptitle(f"Triage sheet · {part_label}", x=0.02, ha="left")
-    return Plot("triage", fig, {"n_traces": len(part_traces), "hypotheses": rows, "captures": captures})
+        fig.suptitle(f"Triage sheet · returned part {part_label} against {lot_label}", x=0.02, ha="left")
+    return Plot("triage", fig, {"n_traces": len(verdicts), "panels": [p.title for p in shown], "hypotheses": rows,
+                                "captures": captures})
+
+
+def _triage_panel(ax, panel: TriagePanel, lot_label: str) -> None:
+    spans = [tr.t_s for tr in panel.part] + ([panel.lot.t_s] if panel.lot is not None else [])
+    factor, unit = time_scale([np.max(np.abs(s)) for s in spans if s.size] or [1e-6])
+    if panel.lot is not None:
+        _draw_envelope(ax, panel.lot, factor, label=f"{lot_label} median")
+    for tr in panel.part:
+        vs = style.verdict_style(tr.verdict)
+        ax.plot(tr.t_s / factor, tr.output_v, color=vs.colour, linewidth=1.3, gid="part_trace")
+        ev = tr.events().get("cross90")
+        if ev:
+            ax.plot(ev[0] / factor, ev[1], marker=vs.marker, color=vs.colour, markeredgecolor=style.INKS.ink)
+    if not panel.part:
+        ax.text(0.5, 0.5, "no waveforms available for this part", transform=ax.transAxes, ha="center",
+                color=style.INKS.slate)
+    ax.set_xlabel(f"time from supply valid [{unit}]")
+    ax.set_title(panel.title, fontsize=9.5)
 
 
 _CAPTURE_COLUMNS = (("temperature_c", "temperature", "°C"), ("ramp_s", "ramp time", "s"), ("repeat", "repeat", ""),
@@ -617,7 +642,7 @@ def _hypotheses_block(ax, rows: Sequence[Mapping], max_rows: int = 6) -> None:
                 fontsize=9, transform=ax.transAxes, va="top")
         return
     top = max(float(r["score"]) for r in shown)
-    line = 0.03  # one 7.5 pt line, in axes fraction of this panel
+    line = 0.029  # one 7.5 pt line (1.25 spacing), in axes fraction of this panel
     y = 0.97
     for rank, r in enumerate(shown, start=1):
         score = float(r["score"])
@@ -625,7 +650,7 @@ def _hypotheses_block(ax, rows: Sequence[Mapping], max_rows: int = 6) -> None:
         if r["next_experiment"]:
             body += "\nnext: " + str(r["next_experiment"])
         wrapped = "\n".join(textwrap.fill(part, 108) for part in body.splitlines())
-        height = 1.5 * line + line * (wrapped.count("\n") + 1)
+        height = 1.6 * line + 1.08 * line * (wrapped.count("\n") + 1)
         if y - height < 0 and rank > 1:
             ax.text(0.0, max(y, 0.0), f"… {len(shown) - rank + 1} more in the HTML report", transform=ax.transAxes,
                     fontsize=7.5, va="top", color=style.INKS.slate)

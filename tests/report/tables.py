@@ -8,6 +8,8 @@ import pandas as pd
 
 from labtool.report.traces import Trace
 
+RAMPS = (20e-6, 200e-6)  # supply ramp times of the campaign fixture (conftest.py)
+
 
 def measurement_rows(specs) -> pd.DataFrame:
     """``specs``: (lot, wafer, die_x, die_y, verdict, delay_s) tuples → a measurement-table slice."""

@@ -231,11 +231,14 @@ def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses()
                   {"name": "never shown", "score": 0.0, "evidence": {}, "next_experiment": ""}]
     captures = pd.DataFrame({"temperature_c": [25.0, -40.0], "ramp_s": [1e-4, 1e-3], "repeat": [1, 1],
                              "verdict": ["slow_start", "stuck_at_zero"], "delay_s": [30e-6, None]})
-    plot = plots.triage_sheet(part, envelope(lot), hypotheses, captures, part_label="A/p07", lot_label="A")
+    panels = [plots.TriagePanel("ramp 100 µs", part[:1], envelope(lot)), plots.TriagePanel("ramp 1 ms", part[1:])]
+    plot = plots.triage_sheet(panels, hypotheses, captures, part_label="A/p07", lot_label="A")
     fig = plot.figure
     assert tuple(fig.get_size_inches()) == pytest.approx(style.FIGSIZE_A4)
-    assert len([ln for ln in fig.axes[0].get_lines() if ln.get_gid() == "part_trace"]) == 2
-    assert len([ln for ln in fig.axes[0].get_lines() if ln.get_gid() == "median"]) == 1
+    for ax, n_part, n_median in zip(fig.axes[:2], (1, 1), (1, 0)):  # each set-up its own panel
+        assert len([ln for ln in ax.get_lines() if ln.get_gid() == "part_trace"]) == n_part
+        assert len([ln for ln in ax.get_lines() if ln.get_gid() == "median"]) == n_median
+    assert [ax.get_title(loc="left") for ax in fig.axes[:2]] == ["ramp 100 µs", "ramp 1 ms"]
     texts = _texts(fig)
     assert "1. weak startup current" in texts and "2. bistable near escape" in texts
     assert any("delay_ratio = 2.5" in t and "next: raise the ramp time" in t for t in texts)
