@@ -155,15 +155,17 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
         return {"field": _cell(title, first + (col or 0), r)}
 
     columns = [_numeric_column(path, title, block, first + k, where.data) for k in range(len(names))]
-    metadata, meta_place = {}, {}
+    metadata, meta_place, notes = {}, {}, []
     for r in range(top):
         cells = [(k, cell_text(v).strip()) for k, v in enumerate(rows[r]) if cell_text(v).strip()]
-        pairs, _ = parse_preamble(["\t".join(c for _, c in cells)], "\t")
+        pairs, row_notes = parse_preamble(["\t".join(c for _, c in cells)], "\t")
+        notes += row_notes
         for key, value in pairs.items():
             metadata[key] = value
             meta_place[key] = {"field": _cell(title, cells[1][0] if len(cells) > 1 else cells[0][0], r)}
     return RawTable(source_path=path, importer="xlsx", names=names, units=units, columns=columns, place=place,
                     locator=title, metadata=metadata, metadata_place=lambda key: meta_place.get(key, {}),
+                    notes=notes,
                     layout=f"sheet {title!r}, data from row {where.data + 1}")
 
 

@@ -19,7 +19,7 @@ TEXT_CASES = [
     ("prose.txt", b"operator notes\nnothing measured today\n", "prose.txt: no data rows: no line holds numbers"),
     ("nul.csv", b"time,vdd,vref\n0,0\x00,0\n", "nul.csv:2: binary data (NUL byte), not a text export"),
     ("text.csv", b"time,vdd,vref\n0,0,0\n1e-6,abc,0\n2e-6,1.8,1.2\n", "text.csv:3 [vdd]: 'abc' is not a number"),
-    ("cut.csv", b"time,vdd,vref\n0,0,0\n1e-6,0.9,0.1\n2e-6,1.8", 
+    ("cut.csv", b"time,vdd,vref\n0,0,0\n1e-6,0.9,0.1\n2e-6,1.8",
      "cut.csv:4: 2 fields, expected 3 (line cut short or extra delimiter)"),
     ("extra.csv", b"time,vdd,vref\n0,0,0\n1e-6,0.9,0.1,7\n2e-6,1.8,1.2\n",
      "extra.csv:3: 4 fields, expected 3 (line cut short or extra delimiter)"),

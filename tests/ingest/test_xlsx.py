@@ -17,7 +17,7 @@ def test_one_capture_per_sheet_with_workbook_and_sheet_conditions(tmp_path):
     t, vdd, vref = startup_arrays()
     sheets = {
         "conditions": [("lot", "ZR24B"), ("wafer", "W07"), ("Temperature [°C]", 125), ("fixture", "B2")],
-        "p03_fast": [("part", "p03"), ("ramp", "10us"), (), *_capture_rows(t, vdd, vref)],
+        "p03_fast": [("ZR-4410 power-up",), ("part", "p03"), ("ramp", "10us"), (), *_capture_rows(t, vdd, vref)],
         "p04_slow": [("part", "p04"), ("ramp [ms]", 100), (), *_capture_rows(t, vdd, vref * 0.99)],
         "notes": [("remark", "socket cleaned before run")],
     }
@@ -28,7 +28,7 @@ def test_one_capture_per_sheet_with_workbook_and_sheet_conditions(tmp_path):
     assert a.conditions.ramp_s == 1e-5 and b.conditions.ramp_s == 0.1
     assert a.conditions.tags == {"fixture": "B2"}  # an unknown key of the conditions sheet is a tag
     assert a.capture_id != b.capture_id and a.provenance.sha256 == b.provenance.sha256
-    assert a.provenance.importer == "xlsx"
+    assert a.provenance.importer == "xlsx" and a.provenance.metadata["notes"] == "ZR-4410 power-up"
     # Workbooks keep about 15 significant digits (Excel's number precision, from memory), so compare
     # to 1e-14 rather than bit for bit.
     np.testing.assert_allclose(a.times(), t, rtol=1e-12, atol=1e-18)
