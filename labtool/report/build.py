@@ -72,11 +72,12 @@ class _Job:
 
 
 def slug(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower() or "all"
+    return re.sub(r"[^A-Za-z0-9]+", "-", text.replace("µ", "u")).strip("-").lower() or "all"
 
 
 def group_label(key: Mapping[str, Any]) -> str:
-    return " · ".join(f"{k} {'—' if v is None else v}" for k, v in key.items())
+    """``lot ZR24A · ramp_s 20 µs``: each key with its value as the report shows it."""
+    return " · ".join(f"{k} {report_html.display(k, v)}" for k, v in key.items())
 
 
 # -- workers ------------------------------------------------------------------------------------

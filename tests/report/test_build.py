@@ -69,7 +69,7 @@ def test_grouping_by_other_keys_and_a_measurement_table_without_waveforms(campai
         table = camp.measurements()
     files = write_report(table, tmp_path / "out", by=("lot", "ramp_s"))
     names = {p.name for p in files.plots}
-    assert "lot-zr24a-ramp-s-2e-05-delay_histogram.png" in names
+    assert "lot-zr24a-ramp-s-20-us-delay_histogram.png" in names
     assert not any("overlay" in n for n in names)  # no waveforms in a bare table
     assert "part-zr24a-p04-triage.png" in names  # the sheet still ranks the hypotheses
     assert len(load_workbook(files.workbook)["Summary"]["A"]) == 1 + 4
@@ -90,3 +90,13 @@ def test_pick_traces_keeps_failures_first_and_spreads_the_starts():
     picked = pick_traces(verdicts, limit=6)
     assert picked[:3] == ["c10", "c11", "c12"]
     assert picked[3:] == ["c0", "c4", "c9"]  # evenly over the ten starts, ends included
+
+
+def test_the_plots_are_the_same_whichever_executor_draws_them(campaign, tmp_path):
+    from labtool.execute import parse_scheduler
+
+    here = write_report(campaign, tmp_path / "one", scheduler=parse_scheduler("local:1"))
+    pool = write_report(campaign, tmp_path / "two", scheduler=parse_scheduler("local:2"))
+    assert [p.name for p in here.plots] == [p.name for p in pool.plots]
+    for a, b in zip(here.plots, pool.plots):
+        assert a.read_bytes() == b.read_bytes(), a.name
