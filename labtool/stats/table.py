@@ -56,9 +56,11 @@ def part_labels(df: pd.DataFrame) -> pd.Series:
     """``LOT/PART`` per row (the way the CLI names a part); empty where the part is unknown."""
     if "part" not in df.columns:
         return pd.Series("", index=df.index)
-    lot = df["lot"].astype("string").fillna("") if "lot" in df.columns else pd.Series("", index=df.index)
     part = df["part"].astype("string")
-    return (lot + "/" + part.fillna("")).where(part.notna(), "")
+    if "lot" not in df.columns:
+        return part.fillna("")
+    lot = df["lot"].astype("string")
+    return (lot.fillna("") + "/" + part).where(part.notna() & lot.notna(), part).fillna("")
 
 
 def plain(value):

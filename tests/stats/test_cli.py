@@ -137,3 +137,12 @@ def test_calibrate_writes_a_loadable_design_and_reports_json(tmp_path, design_fi
 def test_calibrate_bad_fit_name(campaign, design_file, capsys):
     assert main(["calibrate", campaign, "--model", design_file, "--fit", "nosuch_a"]) == 2
     assert capsys.readouterr().err.strip().startswith("labtool calibrate: --fit nosuch_a: not a design parameter")
+
+
+def test_triage_with_the_model_adds_the_startup_margin(campaign, design_file, capsys):
+    assert main(["triage", campaign, "--part", "ZR24B/p02", "--model", design_file, "--json"]) == 0
+    (rec,) = _json_lines(capsys)
+    top = rec["hypotheses"][0]
+    assert top["name"] == "slow_ramp_miss"
+    margin = top["evidence"]["model_i_start_min_a_by_temperature_c"]
+    assert set(margin) == {"-40", "25"} and all(0 < v < top["evidence"]["model_i_start_a"] for v in margin.values())

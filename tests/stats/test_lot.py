@@ -94,3 +94,11 @@ def test_json_form_has_the_issue_keys_and_is_valid_json():
         assert key in rec, key
     assert rec["lot"] == "ZR24A" and rec["n_stuck"] == 2
     assert json.loads(json.dumps(rec, allow_nan=False))["delay_fit"]["distribution"] == "lognormal"
+
+
+def test_part_labels_with_and_without_lot():
+    from labtool.stats.table import part_labels
+
+    df = pd.DataFrame({"lot": ["ZR24A", None, "ZR24B"], "part": ["p01", "p02", None]})
+    assert part_labels(df).tolist() == ["ZR24A/p01", "p02", ""]
+    assert part_labels(df.drop(columns="lot")).tolist() == ["p01", "p02", ""]
