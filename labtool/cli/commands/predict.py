@@ -113,13 +113,17 @@ def summary_text(out: dict, waveform: str | None) -> str:
         + f"; switch-over at {si(dc['i_switch_a'], 'A')}")
     lines.append(f"  offset limit      an input offset at or below {si(dc['offset_limit_v'], 'V')} removes the wanted point")
     need = dc["i_start_min_a"]
+    kind = p["startup_kind"]
+    offered = {"inject": p["i_start_a"], "pulldown": p["i_start_a"],
+               "kick_supply": p["c_kick_f"] * p["vdd_v"] / p["ramp_s"],  # I = C·dVDD/dt
+               "kick_enable": p["c_kick_f"] * p["vdd_v"] / p["enable_edge_s"]}.get(kind)
     margin = ""
-    if need and p["startup_kind"] in ("inject", "pulldown") and p["i_start_a"] > 0:
-        margin = f" (design {si(p['i_start_a'], 'A')}, margin ×{p['i_start_a'] / need:.3g})"
-    lines.append(f"  startup           {p['startup_kind']}: minimum escape current "
+    if need and offered:
+        margin = f" (design {si(offered, 'A')}{' while it lasts' if kind.startswith('kick') else ''}, margin ×{offered / need:.3g})"
+    lines.append(f"  startup           {kind}: minimum escape current "
                  f"{si(need, 'A') if need is not None else 'none escapes'}{margin}")
     lines.append(f"  nominal transient {tr['verdict']}, delay {si(tr['delay_s'], 's')}, settle {si(tr['settle_s'], 's')}, "
-                 f"overshoot {tr['overshoot_pct'] if tr['overshoot_pct'] is not None else '—'} %, "
+                 f"overshoot {format(tr['overshoot_pct'], '.3g') if tr['overshoot_pct'] is not None else '—'} %, "
                  f"final {si(tr['vout_final_v'], 'V')}")
     mc = out.get("montecarlo")
     if mc:
