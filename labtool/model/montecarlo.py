@@ -17,7 +17,7 @@ import pandas as pd
 
 from labtool.execute import Scheduler, run_batch
 from labtool.errors import ModelError
-from labtool.measure import Limits
+from labtool.measure import Limits, measure_arrays
 from labtool.measure.startup import measure_startup
 from labtool.measure.verdict import decide
 from labtool.model.circuit import OUT, linear_ramp, make_circuit
@@ -87,10 +87,15 @@ def summarise(g: pd.DataFrame) -> dict:
     }
 
 
-def measure_sample(t_s, supply_v, output_v, limits: Limits) -> dict:
-    """The engine's metrics and verdict for one sample, as ``measure_arrays`` computes them, without
-    its step-model fit: the fit only adds ring frequency and damping, which the Monte Carlo summary
-    does not use, and costs twenty times the rest."""
+def measure_sample(t_s, supply_v, output_v, limits: Limits, *, fit: bool = False) -> dict:
+    """The engine's metrics and verdict for one sample. By default as ``measure_arrays`` computes them
+    but without its step-model fit: the fit only adds ring frequency and damping, which the Monte
+    Carlo summary does not use, and costs twenty times the rest. ``fit=True`` calls
+    ``measure_arrays`` itself and adds ``ring_hz`` and ``damping``."""
+    if fit:
+        r = measure_arrays(t_s, supply_v, output_v, limits)
+        return {"verdict": r.verdict, "delay_s": r.delay_s, "settle_s": r.settle_s, "overshoot_pct": r.overshoot_pct,
+                "vout_final_v": r.vout_final_v, "ring_hz": r.ring_hz, "damping": r.damping}
     m = measure_startup(t_s, supply_v, output_v, limits)
     verdict, _ = decide(m, limits)
     return {"verdict": verdict, "delay_s": m.delay_s, "settle_s": m.settle_s, "overshoot_pct": m.overshoot_pct,
@@ -99,7 +104,7 @@ def measure_sample(t_s, supply_v, output_v, limits: Limits) -> dict:
 
 def _run_chunk(item) -> pd.DataFrame:
     """Integrate and measure one chunk of samples at one condition (a picklable batch item)."""
-    design, ramp_s, temperature_c, start, values, limits = item
+    design, ramp_s, temperature_c, start, values, limits, fit = item
     size = len(next(iter(values.values())))
     resolved = resolve_params({**design.values(), **values}, temperature_c)
     resolved["ramp_s"] = ramp_s
@@ -109,7 +114,7 @@ def _run_chunk(item) -> pd.DataFrame:
     supply = circ.supply(rec.t_s)
     rows = []
     for i in range(size):
-        rows.append(measure_sample(rec.t_s, supply, rec.values[i, :, 0], limits))
+        rows.append(measure_sample(rec.t_s, supply, rec.values[i, :, 0], limits, fit=fit))
     frame = pd.DataFrame(rows)
     frame.insert(0, "sample", np.arange(start, start + size))
     frame.insert(0, "temperature_c", float(temperature_c))
@@ -124,13 +129,14 @@ def _run_chunk(item) -> pd.DataFrame:
 
 def monte_carlo(design, *, conditions: Sequence[tuple[float, float]], n: int, seed: int,
                 limits: Limits | None = None, scheduler: Scheduler | None = None,
-                chunk: int = CHUNK) -> MonteCarloResult:
-    """``n`` samples at each (ramp_s, temperature_c); the same parts (draws) at every condition."""
+                chunk: int = CHUNK, fit: bool = False) -> MonteCarloResult:
+    """``n`` samples at each (ramp_s, temperature_c); the same parts (draws) at every condition.
+    ``fit=True`` measures each sample with the full ``measure_arrays`` (adds ring_hz, damping; slower)."""
     if not conditions:
         raise ModelError("Monte Carlo needs at least one (ramp_s, temperature_c) condition")
     values = sampled_values(design, draws(n, seed))
     limits = limits or Limits()
-    items = [(design, float(r), float(t), s, {k: v[s:s + chunk] for k, v in values.items()}, limits)
+    items = [(design, float(r), float(t), s, {k: v[s:s + chunk] for k, v in values.items()}, limits, fit)
              for r, t in conditions for s in range(0, n, chunk)]
     frames = []
     for outcome in run_batch(_run_chunk, items, scheduler, what="monte carlo", unit="batch"):

@@ -56,3 +56,12 @@ def test_summary_per_condition(demo):
     by = res.samples.groupby("ramp_s")
     assert np.array_equal(by.get_group(1e-6)["i_start_a"].to_numpy(), by.get_group(10e-6)["i_start_a"].to_numpy())
     assert set(res.samples.columns) >= {"ramp_s", "temperature_c", "sample", "delay_s", "stuck", "verdict"}
+
+
+def test_full_measurement_agrees_with_the_fast_path(demo):
+    # The fast path is measure_arrays without its step-model fit: same verdicts and delays.
+    fast = monte_carlo(demo, conditions=[(10e-6, 27.0)], n=3, seed=9).samples
+    full = monte_carlo(demo, conditions=[(10e-6, 27.0)], n=3, seed=9, fit=True).samples
+    assert list(fast["verdict"]) == list(full["verdict"])
+    assert np.array_equal(fast["delay_s"].to_numpy(), full["delay_s"].to_numpy())
+    assert "ring_hz" in full.columns and "damping" in full.columns
