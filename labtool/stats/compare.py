@@ -8,7 +8,9 @@ that set-up. Tests: two-sample Kolmogorov–Smirnov (``scipy.stats.ks_2samp``) a
 k-sample (Scholz & Stephens, JASA 82, 1987; ``scipy.stats.anderson_ksamp``, midrank variant, p-value
 interpolated from tables and clipped to 0.001–0.25) on the delays; Fisher's exact test on the 2×2
 table of stuck/not stuck measured vs predicted (it allows for the finite number of predicted
-samples). Captures with verdict ``no_supply`` say nothing about the chip and are left out.
+samples). Findings at ALPHA = 0.05: the stuck fraction by Fisher's test; the delays when either
+delay test is below ALPHA/2 (Bonferroni over the two). Captures with verdict ``no_supply`` say nothing
+about the chip and are left out.
 """
 
 from __future__ import annotations
@@ -144,7 +146,7 @@ def _finding(c: dict) -> tuple[str, tuple[str, ...], str]:
                      f"{c['n_measured']} measured ({100 * c['measured_p_stuck']:.3g} %) vs "
                      f"{100 * c['predicted_p_stuck']:.3g} % predicted (Fisher exact p = {c['stuck_pvalue']:.2g})")
     pvals = [p for p in (c["ks_pvalue"], c["ad_pvalue"]) if p is not None]
-    if pvals and min(pvals) < ALPHA:
+    if pvals and min(pvals) < ALPHA / len(pvals):  # Bonferroni over the two delay tests
         shift, spread = c["delay_shift_s"], c["spread_ratio"]
         if spread is not None and abs(shift) < _SHIFT_OF_IQR * c["predicted_delay_iqr_s"] \
                 and not _SPREAD_BAND[0] <= spread <= _SPREAD_BAND[1]:
