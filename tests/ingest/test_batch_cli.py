@@ -11,7 +11,7 @@ import pytest
 
 from labtool.cli import main
 from labtool.execute import Scheduler
-from labtool.ingest import IngestOptions, find_files, ingest_paths, load_manifest
+from labtool.ingest import IngestOptions, Manifest, find_files, ingest_paths, load_manifest
 from labtool.store import Campaign
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -87,12 +87,14 @@ def test_worker_processes_give_the_same_result_as_one_process(tmp_path, monkeypa
     monkeypatch.chdir(tmp_path)
     _folder(tmp_path)
     results = []
+    options = IngestOptions(manifest=Manifest({"a.csv": {"lot": "ZR24A"}}))  # the options travel to workers
     for name, scheduler in (("one", Scheduler("local", 1)), ("two", Scheduler("local", 2))):
         with Campaign.open(name, create=True) as camp:
-            report = ingest_paths(["runs"], camp, IngestOptions(), scheduler)
-            results.append((report.added, report.failed, camp.captures()[["capture_id", "source_path"]]))
+            report = ingest_paths(["runs"], camp, options, scheduler)
+            results.append((report.added, report.failed, camp.captures()[["capture_id", "source_path", "lot"]]))
     assert results[0][0] == results[1][0] and results[0][1] == results[1][1]
     pd.testing.assert_frame_equal(results[0][2], results[1][2])
+    assert results[1][2].set_index("source_path").loc["runs/a.csv", "lot"] == "ZR24A"
 
 
 def test_ingest_command_lists_each_failure_on_one_line_and_exits_1(tmp_path, monkeypatch, capsys):
