@@ -20,7 +20,11 @@ from labtool.units import format_si, parse_quantity
 
 
 def register(sub) -> None:
-    p = sub.add_parser("predict", help="behavioural startup model of a design: DC, transient, Monte Carlo")
+    p = sub.add_parser("predict", help="behavioural startup model of a design: DC, transient, Monte Carlo",
+                       usage="labtool predict DESIGN [--json] [--set NAME=VALUE ...] [--temp C] [--ramp S] "
+                             "[--montecarlo N] [--seed S] [--waveform OUT.csv] [--scheduler SPEC]",
+                       description="Behavioural model, not transistor-level sign-off. Give DESIGN first: "
+                                   "--set takes every NAME=VALUE that follows it.")
     p.add_argument("design", metavar="DESIGN", help="design file (TOML, schema in docs/model.md)")
     p.add_argument("--json", action="store_true", help="one JSON object as the last line of output")
     p.add_argument("--set", dest="assignments", action="extend", nargs="+", default=[], metavar="NAME=VALUE",
