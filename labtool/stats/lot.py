@@ -150,6 +150,7 @@ def lot_table(stats: Sequence[LotStats]) -> pd.DataFrame:
         rec["delay_fit_aic"] = fit["aic"] if fit else None
         rec["delay_fit_ks_pvalue"] = fit["ks_pvalue"] if fit else None
         rec["delay_fit_ad_stat"] = fit["ad_stat"] if fit else None
+        rec["delay_fit_ad_pvalue"] = fit["ad_pvalue"] if fit else None
         rec["outliers"] = ",".join(rec["outliers"])
         rec["intermittent_parts"] = ",".join(rec["intermittent_parts"])
         records.append(rec)

@@ -108,3 +108,15 @@ def test_best_fit_picks_the_generating_law(name, draw):
     fit = best_fit(draw(np.random.default_rng(11)))
     assert fit.best.distribution == name
     assert fit.best.ks_pvalue > 0.01
+
+
+def test_anderson_darling_p_values_use_the_matching_scipy_tables():
+    # Reference: scipy.stats.anderson(..., method="interpolate") on x (normal), ln x (lognormal) and
+    # ln x against the smallest-extreme-value law (two-parameter Weibull; Stephens, Biometrika 1977).
+    rng = np.random.default_rng(6)  # invented samples
+    w = rng.weibull(2.0, 200) * 1e-5
+    assert fit_distribution(w, "weibull").ad_pvalue == stats.anderson(np.log(w), "gumbel_l", method="interpolate").pvalue
+    assert fit_distribution(w, "weibull").ad_pvalue > 0.05
+    ln = rng.lognormal(np.log(5e-6), 0.5, 200)
+    assert fit_distribution(ln, "lognormal").ad_pvalue == stats.anderson(np.log(ln), "norm", method="interpolate").pvalue
+    assert fit_distribution(ln, "normal").ad_pvalue <= 0.01  # a skewed sample is not normal
