@@ -38,7 +38,7 @@ from labtool.errors import UsageError
 from labtool.execute import Scheduler
 from labtool.stats.intervals import exact_interval
 from labtool.stats.predictions import model_conditions
-from labtool.stats.table import CAME_UP, STUCK, plain
+from labtool.stats.table import CAME_UP, STUCK, plain, require_columns
 
 CAPACITANCE_SCALE = "c_scale"  # virtual parameter: multiplies every capacitance of the design
 PROFILE_DROP = stats.chi2.ppf(0.95, 1) / 2.0  # 1.921
@@ -325,6 +325,7 @@ def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITA
 
     if measurements.empty:
         raise UsageError("no measurements: run `labtool measure CAMPAIGN` first")
+    require_columns(measurements, ["verdict", "delay_s"], "calibrate")
     fit = tuple(dict.fromkeys(fit))
     if not fit:
         raise UsageError("--fit: name at least one parameter")

@@ -43,6 +43,9 @@ def parse_keys(text: str | Sequence[str] | None, default: Sequence[str] = ("lot"
 def groups(df: pd.DataFrame, by: Sequence[str], what: str) -> Iterator[tuple[dict, pd.DataFrame]]:
     """Yield ({key: value}, rows) per group, missing values kept as their own group (None)."""
     require_columns(df, by, what)
+    if not by:
+        yield {}, df
+        return
     for values, rows in df.groupby(list(by), dropna=False, sort=True):
         values = values if isinstance(values, tuple) else (values,)
         yield {k: plain(v) for k, v in zip(by, values)}, rows

@@ -102,3 +102,9 @@ def test_part_labels_with_and_without_lot():
     df = pd.DataFrame({"lot": ["ZR24A", None, "ZR24B"], "part": ["p01", "p02", None]})
     assert part_labels(df).tolist() == ["ZR24A/p01", "p02", ""]
     assert part_labels(df.drop(columns="lot")).tolist() == ["p01", "p02", ""]
+
+
+def test_no_grouping_gives_one_whole_table_group():
+    df = measurement_table(lots=("ZR24A", "ZR24B"))
+    (s,) = lot_statistics(df, by=())
+    assert s.group == {} and s.n == len(df) and s.n_parts == 16
