@@ -210,9 +210,10 @@ def _intermittent(e: _Evidence) -> Hypothesis:
 
 
 def _outlier(e: _Evidence, column: str, name: str, title: str, verdict: str, experiment: str,
-             sign: int = 1) -> Hypothesis:
+             two_sided: bool = False) -> Hypothesis:
+    """A part whose ``column`` sits far above its lot (or far either way when ``two_sided``)."""
     z = e.z_against_lot(column)
-    zs = None if z is None else z * sign if sign else abs(z)
+    zs = None if z is None else abs(z) if two_sided else z
     score = max(_logistic_z(zs) if zs is not None and zs > 0 else 0.0, _any_verdict(e, verdict))
     return Hypothesis(name, title, float(score),
                       {f"part_{column}": e.part_median(column), f"lot_{column}": e.lot_median(column),
@@ -234,7 +235,7 @@ HYPOTHESES: tuple[Callable[[_Evidence], Hypothesis], ...] = (
     lambda e: _outlier(e, "vout_final_v", "level_fault", "wrong output level (core or trim fault)", "wrong_level",
                        "Measure the settled output with a DMM at three temperatures and read back the trim "
                        "code: a constant shift is a trim fault; a wrong temperature slope is a core fault "
-                       "(resistor ratio or diode area).", sign=0),
+                       "(resistor ratio or diode area).", two_sided=True),
 )
 
 
