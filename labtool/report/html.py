@@ -281,6 +281,9 @@ footer { margin-left: 15.5rem; padding: 1rem 1.6rem; color: var(--slate); font-s
   figure, dl.facts div, p.finding { break-inside: avoid; }
   figure.plot { border: 0; padding: 0; display: block; }
   .scroll { max-height: none; overflow: visible; border: 0; }
+  table { width: 100%; font-size: 7pt; }
+  th, td { white-space: normal; padding: 0.1rem 0.25rem; }
+  th { overflow-wrap: anywhere; }
   th { position: static; background: #fff; color: var(--ink); border-bottom: 1.5px solid var(--ink); }
   th::after { content: "" !important; }
   tr { break-inside: avoid; }

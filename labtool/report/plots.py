@@ -76,15 +76,19 @@ def _verdict_counts(verdicts) -> dict[str, int]:
 
 # ---------------------------------------------------------------------------------------------
 def _bin_edges(measured: np.ndarray, pooled: np.ndarray, bins) -> np.ndarray:
-    """Explicit edges as given; else ``bins`` (or numpy's "auto" count, 6 to 40) equal bins over ``pooled``."""
+    """Explicit edges as given; else ``bins`` equal bins over ``pooled`` (measured, predicted, spec),
+    by default as wide as numpy's "auto" rule makes them for the measured delays (6 to 60 bins)."""
     if np.ndim(bins) == 1:
         return np.asarray(bins, dtype=float)
     if not pooled.size:
         return np.linspace(0.0, 1e-6, 7)
-    n_bins = bins or int(np.clip(len(np.histogram_bin_edges(measured if measured.size else pooled, bins="auto")) - 1,
-                                 6, 40))
     lo, hi = float(pooled.min()), float(pooled.max())
-    return np.linspace(lo, hi if hi > lo else lo + 1e-9, n_bins + 1)
+    hi = hi if hi > lo else lo + 1e-9
+    if not bins:
+        auto = np.histogram_bin_edges(measured if measured.size else pooled, bins="auto")
+        width = float(auto[1] - auto[0]) if auto.size > 1 and auto[1] > auto[0] else (hi - lo) / 6
+        bins = int(np.clip(math.ceil((hi - lo) / width), 6, 60))
+    return np.linspace(lo, hi, bins + 1)
 
 
 def _facets(table: pd.DataFrame, facet: str | None, max_facets: int) -> list[tuple[Any, pd.DataFrame]]:
@@ -119,7 +123,7 @@ def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float 
             ax = fig.add_subplot(grid[row, 0])
             what = title if value is None else f"{title} · ramp {format_si(float(value), 's')}"
             panels.append({"facet": value, **_histogram_panel(ax, rows, what, spec_max_delay_s, predicted, bins)})
-        side = fig.add_subplot(grid[:, 1])
+        side = fig.add_subplot(grid[: min(2, len(facets)), 1])  # beside the first panels, bars kept slim
         verdict_counts = _verdict_counts(table.get("verdict", []))
         _verdict_bars(side, verdict_counts)
     return Plot("delay_histogram", fig, {"panels": panels, "verdict_counts": verdict_counts,
@@ -157,7 +161,7 @@ def _histogram_panel(ax, rows: pd.DataFrame, title: str, spec_max_delay_s, predi
     else:
         ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
                 color=style.INKS.slate)
-    ax.legend(loc="upper left")
+    ax.legend(loc="best")
     return {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts, "time_unit": unit}
 
 
