@@ -56,7 +56,7 @@ class ParameterEstimate:
     estimate: float
     ci95_low: float | None
     ci95_high: float | None
-    interval: str  # "profile likelihood", "Wald (ln θ)", or "not identified"
+    interval: str  # how the interval was found, or why an end is missing
 
 
 @dataclass(frozen=True)
@@ -354,11 +354,16 @@ def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITA
                  for ui, (lo, hi) in zip(u, intervals)]
     params = []
     for name, x0, ui, (lo, hi) in zip(fit, initial, u, intervals):
-        identified = lo is not None and hi is not None
+        if lo is not None and hi is not None:
+            label = how
+        elif lo is None and hi is None:
+            label = "not identified (the likelihood is flat here)"
+        else:
+            label = f"{how}; {'lower' if lo is None else 'upper'} end not reached within 100× of the start"
         params.append(ParameterEstimate(name=name, initial=float(x0), estimate=float(math.exp(ui)),
                                         ci95_low=math.exp(lo) if lo is not None else None,
                                         ci95_high=math.exp(hi) if hi is not None else None,
-                                        interval=how if identified else "not identified"))
+                                        interval=label))
     calibrated = with_parameters(design, {p.name: p.estimate for p in params})
     at = list(predict_at) if predict_at is not None else default_prediction_setups(design, setups)
     points = [u]
