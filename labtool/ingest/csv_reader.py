@@ -19,24 +19,25 @@ import pyarrow.csv as pacsv
 from labtool.capture import Capture, sha256_bytes
 from labtool.errors import InputError
 from labtool.ingest.options import IngestOptions
-from labtool.ingest.sniff import (DELIMITER_NAMES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT, TextLayout,
-                                  decode_line, normalise_encoding, sniff, split_fields)
+from labtool.ingest.sniff import (DELIMITER_NAMES, MAX_DECOMPRESSED_BYTES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT,
+                                  TextLayout, check_line_lengths, decode_line, normalise_encoding, shorten, sniff,
+                                  split_fields)
 from labtool.ingest.table import RawTable, build_capture
 
 GZIP_MAGIC = b"\x1f\x8b"
-MAX_UNCOMPRESSED = 2 * 1024**3  # a larger export is split by the user, not swallowed whole
 NUMBER_COMMA = re.compile(r"[-+]?(?:\d+(?:,\d*)?|,\d+)(?:[eE][-+]?\d+)?\Z")
 
 
 def gunzip(data: bytes, path: str) -> bytes:
-    """Decompress every gzip member, refusing more than MAX_UNCOMPRESSED bytes."""
+    """Decompress every gzip member, refusing more than MAX_DECOMPRESSED_BYTES."""
     out = io.BytesIO()
     try:
         with gzip.GzipFile(fileobj=io.BytesIO(data)) as fh:
             while chunk := fh.read(16 * 1024 * 1024):
                 out.write(chunk)
-                if out.tell() > MAX_UNCOMPRESSED:
-                    raise InputError(path, f"decompresses to more than {MAX_UNCOMPRESSED // 1024**3} GiB")
+                if out.tell() > MAX_DECOMPRESSED_BYTES:
+                    raise InputError(path, f"decompresses to more than {MAX_DECOMPRESSED_BYTES >> 20} MiB "
+                                           f"(split the export)")
     except (OSError, EOFError, zlib.error) as exc:
         raise InputError(path, f"corrupt gzip data: {exc}") from None
     return out.getvalue()
@@ -101,7 +102,7 @@ def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) 
             if cell.lower() in NA_TOKENS or number.match(cell):
                 continue
             hint = " (this file uses a decimal comma)" if layout.decimal == "," and NUMBER_DOT.match(cell) else ""
-            return InputError(path, f"{cell!r} is not a number{hint}", line=line, field=name)
+            return InputError(path, f"{shorten(cell)!r} is not a number{hint}", line=line, field=name)
     return InputError(path, f"cannot parse the numeric table: {exc}", line=layout.first_data_line)
 
 
@@ -128,6 +129,7 @@ def read_csv(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
         data = gunzip(data, path)
         importer = "csv+gzip"
     data = normalise_encoding(data, path)
+    check_line_lengths(data, path)
     layout = sniff(data, path)
     columns = parse_body(data, layout, path)
     line_of = _row_locator(data, layout)

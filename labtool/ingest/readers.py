@@ -18,6 +18,7 @@ from labtool.errors import InputError, LabtoolError
 from labtool.ingest.conditions import conditions_from_name, manifest_conditions
 from labtool.ingest.csv_reader import GZIP_MAGIC, read_csv
 from labtool.ingest.options import IngestOptions
+from labtool.ingest.sniff import MAX_FILE_BYTES
 from labtool.ingest.xlsx_reader import read_xlsx
 
 ZIP_MAGIC = b"PK\x03\x04"
@@ -42,6 +43,8 @@ CAPTURE_EXTENSIONS = tuple(ext for r in READERS for ext in r.extensions)
 
 
 def choose_reader(path: str, data: bytes) -> Reader:
+    if not data:
+        raise InputError(path, "empty file")
     for reader in READERS:
         if data.startswith(reader.signatures):
             return reader
@@ -58,6 +61,10 @@ def read_path(path: str | os.PathLike, options: IngestOptions = IngestOptions())
     """Read one file into its captures (roles assigned, SI units, conditions applied). Raises InputError."""
     source = Path(path).as_posix() if not isinstance(path, str) else path
     try:
+        size = os.stat(source).st_size
+        if size > MAX_FILE_BYTES:  # refused from its size: never read into memory
+            raise InputError(source, f"{size / 2**20:.0f} MiB; the importers read files of at most "
+                                     f"{MAX_FILE_BYTES >> 20} MiB (split the export)")
         data = Path(source).read_bytes()
     except IsADirectoryError:
         raise InputError(source, "is a folder, not a file") from None

@@ -23,6 +23,13 @@ HEAD_BYTES = 256 * 1024
 HEAD_LINES = 256  # lines the sniffer looks at (scope preambles are a few dozen)
 SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
 
+# Caps that keep time and memory bounded on hostile or broken files; each refusal says which cap.
+MAX_FILE_BYTES = 1 << 30  # a file on disk, checked from its size before it is read
+MAX_DECOMPRESSED_BYTES = 1 << 30  # gzip text or a workbook's XML, decompressed
+MAX_COLUMNS = 1024
+MAX_LINE_BYTES = 256 * 1024
+QUOTED_CHARS = 40  # of a bad cell, in a message
+
 # Cells that stand for a missing or non-finite value (lower case, for sniffing). NULL_TOKENS are what
 # pyarrow is told to read as missing; "inf" it parses as a number, flagged later like SCPI values.
 NA_TOKENS = frozenset({"", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "inf", "+inf", "-inf",
@@ -38,6 +45,7 @@ DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", " ": "whitespace
 
 _COMMENT = "#%!*/;"
 _LINE_END = re.compile(rb"\r\n|\n|\r")
+_LINE_END_BYTE = re.compile(rb"[\r\n]")
 _NON_BLANK = re.compile(rb"\S")
 _BRACKET = re.compile(r"^(.*?)\s*[\[(]\s*([^\[\]()]*?)\s*[\])]\s*$")
 _SPICE = re.compile(r"^[vViI]\(.+\)$")
@@ -256,12 +264,29 @@ def normalise_encoding(data: bytes, path: str) -> bytes:
     """Drop a UTF-8 byte-order mark; re-encode UTF-16 (with its mark) as UTF-8."""
     if data.startswith(b"\xef\xbb\xbf"):
         return data[3:]
+    if data.startswith((b"\xff\xfe\x00\x00", b"\x00\x00\xfe\xff")):  # before UTF-16: same first two bytes
+        raise InputError(path, "UTF-32 text: save the export as UTF-8 (or UTF-16 with a byte-order mark)")
     if data.startswith((b"\xff\xfe", b"\xfe\xff")):
         try:
             return data.decode("utf-16").encode("utf-8")
         except UnicodeDecodeError as exc:
             raise InputError(path, f"invalid UTF-16 text at byte {exc.start}") from None
     return data
+
+
+def shorten(text: str) -> str:
+    """A cell as a message quotes it: a long one cut, with its length."""
+    return text if len(text) <= QUOTED_CHARS else f"{text[:QUOTED_CHARS]}… ({len(text)} characters)"
+
+
+def check_line_lengths(data: bytes, path: str) -> None:
+    """Refuse a line longer than MAX_LINE_BYTES. One probe per window of that size finds any window
+    without a line end (so every line of twice the cap is found) at next to no cost on real files."""
+    for pos in range(0, len(data) - MAX_LINE_BYTES + 1, MAX_LINE_BYTES):
+        if _LINE_END_BYTE.search(data, pos, pos + MAX_LINE_BYTES) is None:
+            cr_only = data.find(b"\n", 0, pos) < 0 and data.find(b"\r", 0, pos) >= 0  # old Mac line ends
+            raise InputError(path, f"line longer than {MAX_LINE_BYTES // 1024} KiB (not a capture export, or a "
+                                   f"line end is missing)", line=data.count(b"\r" if cr_only else b"\n", 0, pos) + 1)
 
 
 def split_head(data: bytes) -> list[tuple[int, str]]:
@@ -311,8 +336,11 @@ def sniff(data: bytes, path: str) -> TextLayout:
         if best is None or score > best[0]:
             best = (score, delimiter, rows, where)
     if best is None:
-        raise _no_table(path, lines)
+        raise _no_table(path, lines, data[:HEAD_BYTES])
     _, delimiter, rows, where = best
+    if where.n_columns > MAX_COLUMNS:
+        raise InputError(path, f"{where.n_columns} columns; at most {MAX_COLUMNS} are read (split the export)",
+                         line=(where.header if where.header is not None else where.data) + 1)
     names, units = column_names_and_units(rows, where)
     body_offset = lines[where.data][0]
     preamble_end = where.header if where.header is not None else where.data
@@ -336,8 +364,26 @@ def _decimal_mark(data: bytes, body_offset: int, sample: list[list[str]], delimi
     return "," if data.find(b",", body_offset) >= 0 else "."
 
 
-def _no_table(path: str, lines: list[tuple[int, str]]) -> InputError:
-    """Say why no table was found: nothing there, a header without data, text only, or no clean rows."""
+_ODD_BYTES = bytes(b for b in range(256) if b >= 0x80 or (b < 0x20 and b not in b"\t\n\r\x0c"))
+
+
+def _not_text(head: bytes) -> bool:
+    """Not UTF-8, and mostly bytes that Western text rarely holds (high or control): EBCDIC, binary."""
+    try:
+        head.decode("utf-8")
+        return False
+    except UnicodeDecodeError as exc:
+        if exc.start >= len(head) - 3:  # a character cut at the end of the head
+            return False
+    plain = head.translate(None, _ODD_BYTES)
+    return len(head) - len(plain) > 0.3 * len(head)
+
+
+def _no_table(path: str, lines: list[tuple[int, str]], head: bytes) -> InputError:
+    """Say why no table was found: not text, nothing there, a header without data, text only, or no clean rows."""
+    if _not_text(head):
+        return InputError(path, "not text in a known encoding (UTF-8, UTF-16 with a byte-order mark, "
+                                "Windows-1252, Latin-1)")
     numbered = [(k + 1, t) for k, (_, t) in enumerate(lines) if t.strip()]
     if not numbered:
         return InputError(path, "empty file")

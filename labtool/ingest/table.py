@@ -23,6 +23,9 @@ from labtool.units import parse_quantity
 # SCPI-1999 Vol. 1 (Syntax and Style), special numeric values: NAN is sent as 9.91E37, INFinity and
 # NINFinity as ±9.9E37. Anything at or beyond that magnitude is an instrument's "no valid value".
 SCPI_INFINITY = 9.9e37
+# Beyond these, an SI value is a wrong unit or a corrupt cell, not a signal on an IC bench (common
+# practice, no source): refused with the cell, never stored.
+PLAUSIBLE_LIMITS = {"V": 1e6, "A": 1e6, "s": 1e10}
 
 TIME_NAMES = frozenset({"time", "t", "x", "seconds", "sec", "timestamp", "time_s", "elapsed"})
 INDEX_NAMES = frozenset({"index", "idx", "sample", "samples", "sample_index", "sample_no", "sample_number",
@@ -125,6 +128,7 @@ def _time_base(table: RawTable, t_col: int | None, index_col: int | None, factor
         if bad.any():
             k = _first_bad(bad)
             raise InputError(path, "time is missing or not a number", **table.place(k, t_col))
+        _check_plausible(table, t, np.zeros(n, dtype=bool), t_col, "s")
         steps = np.diff(t)
         if (steps <= 0).any():
             k = _first_bad(steps <= 0) + 1
@@ -145,6 +149,15 @@ def _time_base(table: RawTable, t_col: int | None, index_col: int | None, factor
         raise InputError(path, "no time column (a column in seconds or named time) and no sample interval "
                                "in the preamble", **table.place(None, None))
     return TimeBase(n=n, t0_s=t0, dt_s=dt)
+
+
+def _check_plausible(table: RawTable, values: np.ndarray, clipped: np.ndarray, col: int, unit: str) -> None:
+    limit = PLAUSIBLE_LIMITS[unit]
+    far = ~clipped & (np.abs(values) > limit)
+    if far.any():
+        k = _first_bad(far)
+        raise InputError(table.source_path, f"{values[k]:g} {unit} is beyond the plausible ±{limit:g} {unit} "
+                                            f"(a wrong unit or a corrupt file)", **table.place(k, col))
 
 
 def _is_index(values: np.ndarray) -> bool:
@@ -209,6 +222,8 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
         if role in ("supply", "output") and clipped.all():
             raise InputError(path, f"column {table.names[k]!r} ({role}) holds no valid values",
                              **table.place(None, k))
+        if want:
+            _check_plausible(table, values, clipped, k, want)
         values = np.where(clipped, np.nan, values)
         channels.append(Channel(name=table.names[k], unit=unit or want or "", role=role, values=values,
                                 clipped=clipped if clipped.any() else None))

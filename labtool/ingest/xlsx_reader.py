@@ -17,27 +17,51 @@ import zlib
 import numpy as np
 import openpyxl
 from openpyxl.utils import get_column_letter
+from openpyxl.utils.cell import column_index_from_string, coordinate_from_string
 from openpyxl.utils.exceptions import InvalidFileException
 
 from labtool.capture import Capture, Conditions, sha256_bytes
 from labtool.errors import InputError
 from labtool.ingest.conditions import typed_conditions
 from labtool.ingest.options import IngestOptions
-from labtool.ingest.sniff import HEAD_LINES, column_names_and_units, locate_table, parse_preamble
+from labtool.ingest.sniff import (HEAD_LINES, MAX_COLUMNS, MAX_DECOMPRESSED_BYTES, column_names_and_units,
+                                  locate_table, parse_preamble, shorten)
 from labtool.ingest.table import RawTable, build_capture
 
 CONDITION_SHEETS = frozenset({"conditions", "condition", "run_conditions", "setup", "run_info", "metadata"})
 MAX_CELLS = 20_000_000  # per sheet; a capture sheet never needs more, a hostile one gets a clear no
 _WORKBOOK_ERRORS = (zipfile.BadZipFile, zlib.error, KeyError, ValueError, TypeError, SyntaxError, EOFError,
-                    OSError, InvalidFileException)
+                    OSError, LookupError, InvalidFileException)
+
+
+def unreadable(path: str, exc: Exception) -> InputError:
+    """One line for a workbook the libraries refused; the cause when openpyxl wraps it in prose."""
+    from defusedxml import DefusedXmlException
+
+    chain = [exc]
+    while chain[-1].__cause__ is not None or chain[-1].__context__ is not None:
+        chain.append(chain[-1].__cause__ or chain[-1].__context__)
+    if any(isinstance(e, DefusedXmlException) for e in chain):
+        what = "XML entity declarations are refused: a possible entity-expansion attack"
+    else:
+        text = str(exc).strip().splitlines()
+        what = f"{type(exc).__name__}: {text[0] if text else ''}".rstrip(": ")
+    return InputError(path, f"not a readable XLSX workbook ({what})")
 
 
 def open_workbook(data: bytes, path: str):
     try:
+        declared = sum(member.file_size for member in zipfile.ZipFile(io.BytesIO(data)).infolist())
+    except _WORKBOOK_ERRORS as exc:
+        raise unreadable(path, exc) from None
+    # A member bigger than it declares fails its CRC check in zipfile, so the declared sizes bound the work.
+    if declared > MAX_DECOMPRESSED_BYTES:
+        raise InputError(path, f"workbook decompresses to more than {MAX_DECOMPRESSED_BYTES >> 20} MiB (refused unread)")
+    try:
         return openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True, keep_vba=False,
                                       keep_links=False)
     except _WORKBOOK_ERRORS as exc:
-        raise InputError(path, f"not a readable XLSX workbook ({type(exc).__name__}: {exc})") from None
+        raise unreadable(path, exc) from None
 
 
 def cell_text(value) -> str:
@@ -59,9 +83,17 @@ def _cell(title: str, col: int, row: int) -> str:
     return f"{title}!{get_column_letter(col + 1)}{row + 1}"
 
 
+def _too_wide(path: str, ws, width: int | None) -> None:
+    if width is not None and width > MAX_COLUMNS:
+        raise InputError(path, f"sheet is {width} columns wide; at most {MAX_COLUMNS} are read (split the export)",
+                         field=ws.title)
+
+
 def _sheet_rows(ws, path: str) -> list[tuple]:
+    _too_wide(path, ws, ws.max_column)  # the declared dimension, before any row is expanded to it
     rows, cells = [], 0
     for row in ws.iter_rows(values_only=True):
+        _too_wide(path, ws, len(row))
         rows.append(row)
         cells += len(row)
         if cells > MAX_CELLS:
@@ -78,7 +110,7 @@ def read_xlsx(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
     try:
         sheets = [(ws.title, _sheet_rows(ws, path)) for ws in wb.worksheets]
     except _WORKBOOK_ERRORS as exc:
-        raise InputError(path, f"unreadable workbook ({type(exc).__name__}: {exc})") from None
+        raise unreadable(path, exc) from None
     finally:
         wb.close()
     titles = {title for title, _ in sheets}
@@ -97,6 +129,8 @@ def read_xlsx(path: str, data: bytes, options: IngestOptions) -> list[Capture]:
             table.base_conditions = common
             table.sheet_conditions = per_sheet.get(title, Conditions())
             tables.append(table)
+    for table in tables:
+        _refuse_uncached_formulas(path, data, table)
     if not tables:
         raise InputError(path, "no sheet holds a capture table (a header row above columns of numbers)")
     return [build_capture(t, sha, options) for t in tables]
@@ -169,6 +203,34 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
                     layout=f"sheet {title!r}, data from row {where.data + 1}")
 
 
+def _refuse_uncached_formulas(path: str, data: bytes, table: RawTable) -> None:
+    """A formula cell without a cached value reads as empty: name it instead of storing a gap.
+
+    Formulas are never evaluated. Only a table with empty cells costs a second, formula-mode pass
+    over its rows (the cached-value pass cannot tell an empty cell from an uncalculated formula).
+    """
+    empty: set[tuple[int, int]] = set()
+    for col, values in enumerate(table.columns):
+        for row in np.flatnonzero(np.isnan(values))[:10_000]:
+            ref = table.place(int(row), col)["field"].rpartition("!")[2]
+            letters, number = coordinate_from_string(ref)
+            empty.add((number, column_index_from_string(letters)))
+    if not empty:
+        return
+    wb = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=False, keep_vba=False,
+                                keep_links=False)
+    try:
+        first, last = min(r for r, _ in empty), max(r for r, _ in empty)
+        for r, row in enumerate(wb[table.locator].iter_rows(min_row=first, max_row=last), start=first):
+            for c, cell in enumerate(row, start=1):
+                if (r, c) in empty and isinstance(cell.value, str) and cell.value.startswith("="):
+                    raise InputError(path, f"formula {shorten(cell.value)} has no cached value (formulas are never "
+                                           f"evaluated: recalculate and save the workbook, or export CSV)",
+                                     field=f"{table.locator}!{get_column_letter(c)}{r}")
+    finally:
+        wb.close()
+
+
 def _numeric_column(path: str, title: str, block: list[tuple], col: int, first_row: int) -> np.ndarray:
     values = np.array([row[col] if col < len(row) else None for row in block], dtype=object)
     try:
@@ -185,5 +247,5 @@ def _numeric_column(path: str, title: str, block: list[tuple], col: int, first_r
                 continue
             except ValueError:
                 pass
-            raise InputError(path, f"{cell_text(v)!r} is not a number", field=_cell(title, col, first_row + r))
+            raise InputError(path, f"{shorten(cell_text(v))!r} is not a number", field=_cell(title, col, first_row + r))
     raise AssertionError("a column failed to convert but every cell is a number")  # pragma: no cover

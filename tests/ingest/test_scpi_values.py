@@ -27,11 +27,14 @@ def test_scpi_special_values_are_nan_and_clipped(tmp_path, token):
     assert out.values[3] == 1.2 and capture.channel("supply").clipped is None
 
 
-def test_a_large_but_real_value_is_not_clipped(tmp_path):
-    # 9.8E37 is below the SCPI infinity magnitude: absurd for a voltage, but not a SCPI marker.
+def test_a_large_value_below_the_scpi_markers_is_not_clipped_but_refused(tmp_path):
+    # 9.8E37 is below the SCPI infinity magnitude: not a SCPI marker, so not a missing sample; absurd
+    # for a voltage, so an error naming the cell (issue #9, absurd magnitudes), never stored.
+    from labtool.errors import InputError
+
     rows = [("0.0", "9.8E37"), ("1.8", "1.2")] * 3
-    (capture,) = read_path(_file(tmp_path, rows))
-    assert capture.channel("output").clipped is None
+    with pytest.raises(InputError, match=r"scpi.csv:2 \[vref\]: 9.8e\+37 V is beyond the plausible ±1e\+06 V"):
+        read_path(_file(tmp_path, rows))
 
 
 def test_empty_and_nan_cells_are_flagged_like_over_range(tmp_path):

@@ -4,6 +4,7 @@ import numpy as np
 import openpyxl
 import pytest
 
+from labtool.errors import InputError
 from labtool.ingest import read_path
 from labtool.store import Campaign
 from tests.ingest.writers import startup_arrays, write_workbook
@@ -59,7 +60,11 @@ def test_table_away_from_the_corner_and_formulas_are_not_evaluated(tmp_path):
         ws.cell(row=3 + k, column=2, value=k * 1e-6)
         ws.cell(row=3 + k, column=3, value=1.8)
         ws.cell(row=3 + k, column=4, value=1.2)
-    ws["D5"] = "=1+1"  # a formula with no cached value: never evaluated, so read as missing
+    ws["D5"] = "=1+1"  # a formula with no cached value: never evaluated, so a clear error (issue #9)
+    wb.save(tmp_path / "corner.xlsx")
+    with pytest.raises(InputError, match=r"corner.xlsx \[scope!D5\]: formula =1\+1 has no cached value"):
+        read_path(str(tmp_path / "corner.xlsx"))
+    ws["D5"] = None  # an empty cell is a missing sample
     wb.save(tmp_path / "corner.xlsx")
     (capture,) = read_path(str(tmp_path / "corner.xlsx"))
     out = capture.channel("output")
