@@ -29,8 +29,8 @@ from labtool.stats.table import CAME_UP, STUCK, groups, plain, require_columns
 
 ALPHA = 0.05
 # When the delay laws differ, the finding is the spread only if the location shift is small against
-# the predicted spread (|shift| < _SHIFT_OF_IQR × IQR) and the IQRs differ beyond _SPREAD_BAND;
-# otherwise the direction of the shift (slower / faster).
+# the predicted spread (|shift| < _SHIFT_OF_IQR × the set-up's predicted IQR) and the spreads differ
+# beyond _SPREAD_BAND; otherwise the direction of the shift (slower / faster).
 _SHIFT_OF_IQR = 0.25
 _SPREAD_BAND = (0.8, 1.25)
 
@@ -47,6 +47,7 @@ class Comparison:
     measured_delay_iqr_s: float | None
     predicted_delay_iqr_s: float | None
     delay_shift_s: float | None
+    delay_shift_iqr: float | None
     median_ratio: float | None
     spread_ratio: float | None
     ks_stat: float | None
@@ -107,19 +108,36 @@ def mixed_prediction(pred_by_cell: Mapping[tuple, pd.DataFrame], measured_counts
     return d[~s], s
 
 
-def _shift(rows: pd.DataFrame, cells: pd.Series, pred_by_cell: Mapping[tuple, pd.DataFrame]) -> float | None:
-    """Median over the measured captures of (delay − predicted median delay at the capture's set-up):
-    a location difference that stays meaningful when a group mixes set-ups (and delays are negative)."""
-    if "delay_s" not in rows.columns:
-        return None
-    medians = {}
+@dataclass(frozen=True)
+class _Location:
+    shift_s: float | None  # median of (delay − predicted median at the capture's set-up)
+    shift_iqr: float | None  # the same in units of the predicted IQR at that set-up
+    spread_ratio: float | None  # IQR of measured vs predicted delays, each standardised per set-up
+
+
+def _location(rows: pd.DataFrame, cells: pd.Series, pred_by_cell: Mapping[tuple, pd.DataFrame]) -> _Location:
+    """Location and spread against the prediction set-up by set-up, so that a group mixing set-ups
+    (and negative delays on slow ramps) is judged by its captures' own set-ups, not by the mixture."""
+    if "delay_s" not in rows.columns or rows.empty:
+        return _Location(None, None, None)
+    centre, scale, pred_std = {}, {}, []
     for cell in set(cells):
         p = pred_by_cell[cell]
         d = p.loc[~p["stuck"], "delay_s"].to_numpy(np.float64)
-        medians[cell] = float(np.median(d[np.isfinite(d)])) if np.isfinite(d).any() else np.nan
-    diff = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(np.float64) - cells.map(medians).to_numpy(np.float64)
-    diff = diff[np.isfinite(diff)]
-    return float(np.median(diff)) if diff.size else None
+        d = d[np.isfinite(d)]
+        centre[cell] = float(np.median(d)) if d.size else np.nan
+        scale[cell] = _iqr(d) or np.nan
+        if d.size >= 2 and scale[cell] > 0:
+            pred_std.append((d - centre[cell]) / scale[cell])
+    d = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(np.float64)
+    diff = d - cells.map(centre).to_numpy(np.float64)
+    std = diff / cells.map(scale).to_numpy(np.float64)
+    diff, std = diff[np.isfinite(diff)], std[np.isfinite(std)]
+    iqr_m = _iqr(std)
+    iqr_p = _iqr(np.concatenate(pred_std)) if pred_std else None
+    return _Location(shift_s=float(np.median(diff)) if diff.size else None,
+                     shift_iqr=float(np.median(std)) if std.size else None,
+                     spread_ratio=(iqr_m / iqr_p if iqr_m is not None and iqr_p else None))
 
 
 def _iqr(x: np.ndarray) -> float | None:
@@ -148,11 +166,10 @@ def _finding(c: dict) -> tuple[str, tuple[str, ...], str]:
     pvals = [p for p in (c["ks_pvalue"], c["ad_pvalue"]) if p is not None]
     if pvals and min(pvals) < ALPHA / len(pvals):  # Bonferroni over the two delay tests
         shift, spread = c["delay_shift_s"], c["spread_ratio"]
-        if spread is not None and abs(shift) < _SHIFT_OF_IQR * c["predicted_delay_iqr_s"] \
+        if spread is not None and c["delay_shift_iqr"] is not None and abs(c["delay_shift_iqr"]) < _SHIFT_OF_IQR \
                 and not _SPREAD_BAND[0] <= spread <= _SPREAD_BAND[1]:
             code = "wider" if spread > 1 else "narrower"
-            words.append(f"delay spread {code} than predicted: IQR {c['measured_delay_iqr_s']:.3g} s vs "
-                         f"{c['predicted_delay_iqr_s']:.3g} s")
+            words.append(f"delay spread {code} than predicted: ×{spread:.3g} the predicted IQR at the same set-ups")
         else:
             code = "slower" if shift > 0 else "faster"
             ratio = f", ×{c['median_ratio']:.3g}" if c["median_ratio"] is not None else ""
@@ -192,13 +209,13 @@ def _compare_group(group: dict, rows: pd.DataFrame, pred_by_cell: Mapping[tuple,
     med_m = float(np.median(meas_delays)) if meas_delays.size else None
     med_p = float(np.median(pred_delays)) if pred_delays.size else None
     iqr_m, iqr_p = _iqr(meas_delays), _iqr(pred_delays)
+    loc = _location(used[came_up], cells[matched][came_up], pred_by_cell)
     c = dict(
-        delay_shift_s=_shift(used[came_up], cells[matched][came_up], pred_by_cell),
+        delay_shift_s=loc.shift_s, delay_shift_iqr=loc.shift_iqr, spread_ratio=loc.spread_ratio,
         group=group, match_columns=cols, n_measured=n, n_unmatched=int((~matched).sum()), n_predicted=npred,
         measured_delay_median_s=med_m, predicted_delay_median_s=med_p,
         measured_delay_iqr_s=iqr_m, predicted_delay_iqr_s=iqr_p,
         median_ratio=(med_m / med_p if med_m is not None and med_p is not None and med_m > 0 and med_p > 0 else None),
-        spread_ratio=(iqr_m / iqr_p if iqr_m is not None and iqr_p else None),
         ks_stat=ks_stat, ks_pvalue=ks_p, ad_stat=ad_stat, ad_pvalue=ad_p,
         measured_n_stuck=k, measured_p_stuck=(k / n if n else None),
         predicted_n_stuck=kp, predicted_p_stuck=(kp / npred if npred else None),

@@ -133,3 +133,18 @@ def test_shift_is_taken_per_setup_in_a_mixed_group():
     (c,) = compare(meas, pred.assign(temperature_c=25.0))
     assert c.delay_shift_s == pytest.approx(2e-6, rel=0.1)
     assert c.finding == "slower"
+
+
+def test_spread_is_judged_within_setups():
+    # Invented data: two set-ups 100 µs apart; measured centred on the prediction at each but twice
+    # as spread. The mixture's IQR is set by the set-ups, the within-set-up ratio is 2.
+    rng = np.random.default_rng(12)
+    meas = measurement_table(ramps=(1e-5, 1e-2), temps=(25.0,), parts=40, repeats=3, seed=12)
+    centre = np.where(meas["ramp_s"] == 1e-5, 6e-6, -100e-6)
+    meas["delay_s"] = centre + rng.normal(0, 2e-6, len(meas))
+    pred = pd.concat([pd.DataFrame({"ramp_s": r, "temperature_c": 25.0, "stuck": False,
+                                    "delay_s": c + rng.normal(0, 1e-6, 400)}) for r, c in ((1e-5, 6e-6), (1e-2, -100e-6))])
+    (c,) = compare(meas, pred)
+    assert c.finding == "wider"
+    assert c.spread_ratio == pytest.approx(2.0, rel=0.15)
+    assert abs(c.delay_shift_iqr) < 0.25
