@@ -1,7 +1,6 @@
 """Triage: each hypothesis from a synthetic part built to show it (invented data, stating the property
 that the pattern built in is the one ranked first)."""
 
-import numpy as np
 import pytest
 
 from labtool.errors import UsageError
