@@ -51,6 +51,14 @@ class ReportFiles:
 
 
 @dataclass(frozen=True)
+class Rendered:
+    """What a worker drew: (file name, caption) per PNG, and a returned part's ranked hypotheses."""
+
+    files: tuple[tuple[str, str], ...]
+    hypotheses: tuple = ()
+
+
+@dataclass(frozen=True)
 class _Job:
     """One item of drawing work; everything a worker needs, picklable."""
 
@@ -67,7 +75,8 @@ class _Job:
     predicted_by_ramp: Mapping | None = field(default=None, repr=False)  # ramp_s → delays at that ramp
     predictions: pd.DataFrame | None = field(default=None, repr=False)
     spec_max_delay_s: float | None = None
-    hypotheses: tuple = ()
+    triage_rows: pd.DataFrame | None = field(default=None, repr=False)  # the part's lot, for triage
+    design: Any = field(default=None, repr=False)
     group_col: str | None = None
 
 
@@ -81,10 +90,12 @@ def group_label(key: Mapping[str, Any]) -> str:
 
 
 # -- workers ------------------------------------------------------------------------------------
-def render_job(job: _Job) -> list[tuple[str, str]]:
-    """Draw and save the job's figures; returns (file name, caption) per PNG written."""
+def render_job(job: _Job) -> Rendered:
+    """Draw and save the job's figures (a returned part's triage runs here too, in the worker)."""
     try:
-        drawn = {"overview": _overview_plots, "group": _group_plots, "part": _part_plots}[job.kind](job)
+        hypotheses = triage(job.triage_rows, job.label, design=job.design).hypotheses if job.kind == "part" else ()
+        drawers = {"overview": _overview_plots, "group": _group_plots, "part": _part_plots}
+        drawn = drawers[job.kind](job, hypotheses) if job.kind == "part" else drawers[job.kind](job)
     except LabtoolError:
         raise
     except Exception as exc:  # a figure that cannot be drawn fails its group, not the report
@@ -96,7 +107,7 @@ def render_job(job: _Job) -> list[tuple[str, str]]:
         png = plot.png()
         write_atomic(Path(job.out_dir) / name, lambda tmp: tmp.write_bytes(png), "plot")
         out.append((name, caption))
-    return out
+    return Rendered(tuple(out), tuple(hypotheses))
 
 
 def _overview_plots(job: _Job):
@@ -128,7 +139,7 @@ def _group_plots(job: _Job):
     return out
 
 
-def _part_plots(job: _Job):
+def _part_plots(job: _Job, hypotheses):
     """A triage sheet: per ramp time of the part (failing ones first), its traces against the lot's."""
     part = _load_traces(job.root, job.records, job.rows)
     lot = _load_traces(job.root, job.baseline_records, job.baseline_rows)
@@ -140,7 +151,7 @@ def _part_plots(job: _Job):
         title = "all set-ups" if ramp is None else f"ramp {format_si(ramp, 's')}"
         panels.append(plots.TriagePanel(f"{title} · lot n = {len(theirs)}", mine, envelope(theirs)))
     lot_name = str(job.rows["lot"].iloc[0]) if "lot" in job.rows.columns else "lot"
-    sheet = plots.triage_sheet(panels, job.hypotheses, job.rows, part_label=job.label, lot_label=lot_name)
+    sheet = plots.triage_sheet(panels, hypotheses, job.rows, part_label=job.label, lot_label=lot_name)
     return [(sheet, f"Triage sheet of returned part {job.label}: its traces against its lot at the same ramp "
                     "times, its captures and the ranked hypotheses.")]
 
@@ -297,18 +308,18 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
             camp.close()
     outcomes = list(run_batch(render_job, jobs, scheduler, what="report", unit="group"))
     failed = (*model_failed, *((o.item.label, o.error) for o in outcomes if not o.ok))
-    drawn = {o.item.label: [(out / "plots" / name, caption) for name, caption in o.value] for o in outcomes if o.ok}
+    rendered = {o.item.label: o.value for o in outcomes if o.ok}
     about = {"labtool_version": __version__, "generated_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
              "campaign": root or "(measurement table)", "grouped_by": ",".join(by), "limits_key": limits_key,
              "spec_max_delay_s": spec_max_delay_s, "model": getattr(design, "name", None) if design is not None else None,
              "model_samples_per_setup": model_samples if design is not None else None, "seed": seed if design is not None else None}
     workbook = write_workbook(out / "report.xlsx", table, summary=stats, comparison=comparisons, limits=limits,
                               about=about)
-    sections = _sections(table, by, stats, comparisons, jobs, drawn, failed, about, limits)
+    sections = _sections(table, by, stats, comparisons, jobs, rendered, out / "plots", failed, about, limits)
     page = report_html.render_html(title or "Startup report", _subtitle(table, by, about), sections)
     html_path = out / "report.html"
     write_atomic(html_path, lambda tmp: tmp.write_text(page, encoding="utf-8"), "HTML report")
-    pngs = tuple(p for items in drawn.values() for p, _ in items)
+    pngs = tuple(out / "plots" / name for r in rendered.values() for name, _ in r.files)
     return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
 
 
@@ -343,8 +354,9 @@ def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) 
     labels = part_labels(table)
     for part in returned:
         mine = table[labels == part]
-        lot = table[(labels != part) & (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False)] \
-            if "lot" in table.columns else table[labels != part]
+        same_lot = (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False) \
+            if "lot" in table.columns else pd.Series(True, index=table.index)
+        lot = table[(labels != part) & same_lot]
         baseline = lot[lot["verdict"].isin(CAME_UP)]
         if "ramp_s" in baseline.columns:  # the lot at the part's ramp times, up to a panel's worth each
             baseline = baseline[baseline["ramp_s"].isin(triage_ramps(mine))]
@@ -353,8 +365,7 @@ def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) 
         else:
             chosen = pick_traces(baseline.set_index("capture_id")["verdict"])
         picked = baseline[baseline["capture_id"].isin(chosen)]
-        report = triage(table, part, design=design)
-        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, hypotheses=report.hypotheses,
+        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, triage_rows=table[same_lot], design=design,
                          records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),
                          baseline_rows=picked,
                          baseline_records=tuple(camp.records(list(picked["capture_id"]))) if camp is not None else (),
@@ -402,10 +413,12 @@ def _facts(s: Mapping[str, Any]) -> list[tuple[str, str]]:
     return facts
 
 
-def _sections(table, by, stats, comparisons, jobs, drawn, failed, about, limits) -> list[report_html.Section]:
+def _sections(table, by, stats, comparisons, jobs, rendered, plot_dir, failed, about, limits
+              ) -> list[report_html.Section]:
     def pictures(label):
-        return [report_html.Picture(caption, path.read_bytes(), alt=f"{label}: {caption}")
-                for path, caption in drawn.get(label, [])]
+        files = rendered[label].files if label in rendered else ()
+        return [report_html.Picture(caption, (plot_dir / name).read_bytes(), alt=f"{label}: {caption}")
+                for name, caption in files]
 
     findings = {}
     if comparisons is not None:
@@ -435,7 +448,7 @@ def _sections(table, by, stats, comparisons, jobs, drawn, failed, about, limits)
         f"{len(failures)} captures that did not simply start", shown, note=note)], nav_group="overview"))
     for job in (j for j in jobs if j.kind == "part"):
         hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.title, "score": h.score, "next experiment": h.next_experiment}
-                            for i, h in enumerate(job.hypotheses)])
+                            for i, h in enumerate(rendered[job.label].hypotheses if job.label in rendered else ())])
         sections.append(report_html.Section(report_html.anchor_for("p " + job.label), job.label,
                                             pictures=pictures(job.label), tables=[report_html.Table("Hypotheses", hyp)],
                                             nav_group="parts"))

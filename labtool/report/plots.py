@@ -38,7 +38,7 @@ class Plot:
 
     def png(self) -> bytes:
         buf = io.BytesIO()
-        self.figure.savefig(buf, format="png", dpi=style.DPI, bbox_inches="tight", pad_inches=0.12)
+        self.figure.savefig(buf, format="png", dpi=style.DPI)
         return buf.getvalue()
 
 

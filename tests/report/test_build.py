@@ -14,13 +14,19 @@ from tests.report.chromium import render_and_check
 from tests.report.tables import RAMPS
 
 
-def test_report_writes_html_workbook_and_plots(campaign, tmp_path):
-    files = write_report(campaign, tmp_path / "out")
+@pytest.fixture(scope="module")
+def report(campaign, tmp_path_factory):
+    out = tmp_path_factory.mktemp("report") / "out"
+    return out, write_report(campaign, out)
+
+
+def test_report_writes_html_workbook_and_plots(report, tmp_path):
+    out, files = report
     assert files.failed == ()
-    assert files.html == tmp_path / "out" / "report.html" and files.workbook == tmp_path / "out" / "report.xlsx"
+    assert files.html == out / "report.html" and files.workbook == out / "report.xlsx"
     names = sorted(p.name for p in files.plots)
     assert all(p.read_bytes()[:4] == b"\x89PNG" for p in files.plots)
-    assert sorted(p.name for p in (tmp_path / "out" / "plots").glob("*.png")) == names
+    assert sorted(p.name for p in (out / "plots").glob("*.png")) == names
     # Per lot: histogram, one overlay per ramp time, wafer map; the overview; the returned part's sheet.
     for lot in ("zr24a", "zr24b"):
         assert {f"lot-{lot}-delay_histogram.png", f"lot-{lot}-waveform_overlay.png",
@@ -44,8 +50,8 @@ def test_report_writes_html_workbook_and_plots(campaign, tmp_path):
     assert limits["limits.max_delay_s"] == pytest.approx(50e-6) and limits["grouped_by"] == "lot"
 
 
-def test_report_renders_in_chromium_with_every_plot_decoded(campaign, tmp_path):
-    files = write_report(campaign, tmp_path / "out")
+def test_report_renders_in_chromium_with_every_plot_decoded(report, tmp_path):
+    _, files = report
     result = render_and_check(files.html.read_text(encoding="utf-8"), tmp_path)
     assert result["n_images"] == len(files.plots) == result["decoded"]
     assert all(w > 300 for w in result["widths"])
