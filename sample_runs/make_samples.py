@@ -1,8 +1,10 @@
 """Write the demo scenario: invented ZR-4410 captures from lots ZR24A and ZR24B in six file shapes.
 
 Run ``python sample_runs/make_samples.py [OUT_DIR]``; the output is byte-for-byte reproducible (fixed
-seeds, fixed zip and gzip timestamps). Every waveform comes from :func:`trace`, the one place to swap
-the simple analytic shapes for the startup model. All data here is invented for the demo.
+seeds, fixed zip and gzip timestamps). Every waveform comes from :func:`trace`: a transient of the
+startup model (labtool.model) of the demo design, per-part variation from sample_population, and the
+failure recipes of labtool.model.scenarios for the four failing captures. All data here is invented
+for the demo.
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ import sys
 import zipfile
 from dataclasses import dataclass
 from datetime import datetime
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +25,6 @@ import numpy as np
 SEED = 4410
 N_SAMPLES = 1000
 VDD_V = 1.8
-VREF_V = 1.2
 LOTS = {"ZR24A": ("W03", ("p01", "p02")), "ZR24B": ("W07", ("p03", "p04"))}
 TEMPERATURES_C = (-40.0, 25.0, 125.0)
 RAMPS_S = (10e-6, 1e-3, 0.1)
@@ -36,8 +38,12 @@ FAILURES = {
     ("ZR24B", "p03", 125.0, 10e-6): "ringing",
     ("ZR24A", "p01", 125.0, 0.1): "recollapse",
 }
-# Per-part spread: startup-delay factor and output offset (volts).
-PARTS = {"p01": (1.0, 0.003), "p02": (1.15, -0.002), "p03": (0.9, 0.001), "p04": (1.05, -0.004)}
+# The recipe (labtool.model.scenarios) each failing capture is simulated with.
+RECIPES = {"stuck_at_zero": "startup_open", "slow_start": "starved_amplifier", "ringing": "late_strong_pulldown",
+           "recollapse": "hot_leaky_q1"}
+PART_ORDER = ("p01", "p02", "p03", "p04")  # index into the seeded population of per-part variation
+DESIGN = Path(__file__).resolve().parent / "design.toml"
+MODEL_POINTS = 3000  # samples of each model transient, resampled onto the scope's record
 FIXED_TIME = datetime(2026, 1, 15, 9, 0, 0)
 
 
@@ -84,40 +90,35 @@ def _quantise(v: np.ndarray, lsb: float) -> np.ndarray:
     return np.clip(np.round(v / lsb), 0, 255) * lsb + 0.0  # + 0.0: no "-0.00" in the files
 
 
-def trace(spec: Spec) -> Trace:
-    """Supply ramp, reference output and supply current of one power-up (simple analytic shapes).
+@lru_cache(maxsize=1)
+def _parts() -> dict:
+    """The demo design with per-part variation (labtool.model.sample_population, seeded)."""
+    from labtool.model import load_design, sample_population
 
-    The core starts once the supply passes a temperature-dependent threshold, after a startup delay;
-    the output then rises as a first-order step (second-order with little damping when ringing),
-    limited by the supply headroom. Noise, then 8-bit quantisation as a scope records it.
+    return dict(zip(PART_ORDER, sample_population(load_design(DESIGN), len(PART_ORDER), SEED)))
+
+
+def trace(spec: Spec) -> Trace:
+    """Supply ramp, reference output and supply current of one power-up, from the startup model.
+
+    The part's design (its seeded variation, plus the failure recipe for the four failing captures)
+    is simulated from an unpowered state by labtool.model.simulate and resampled onto the scope's
+    record (0 V before the ramp starts); then noise and 8-bit quantisation as a scope records them.
     """
+    from labtool.model import simulate
+    from labtool.model.scenarios import SCENARIOS
+
     rng = np.random.default_rng([SEED, spec.index])
     dt, t0 = TIMING[spec.ramp_s]
     t = t0 + dt * np.arange(N_SAMPLES)
-    vdd = VDD_V * np.clip(t / spec.ramp_s, 0.0, 1.0)
-    delay_factor, offset = PARTS[spec.part]
-    v_on = 1.1 + 0.0015 * (25.0 - spec.temperature_c)  # colder needs more supply
-    t_on = spec.ramp_s * v_on / VDD_V
-    delay = 8e-6 * delay_factor * (1.6 if spec.temperature_c < 0 else 0.8 if spec.temperature_c > 100 else 1.0)
-    tau = 3e-6
-    if spec.behaviour == "slow_start":
-        delay = 400e-6
-    x = np.clip(t - t_on - delay, 0.0, None)
-    if spec.behaviour == "ringing":
-        zeta, wn = 0.15, 2 * np.pi * 150e3
-        wd = wn * np.sqrt(1 - zeta**2)
-        step = 1 - np.exp(-zeta * wn * x) * (np.cos(wd * x) + zeta / np.sqrt(1 - zeta**2) * np.sin(wd * x))
-    else:
-        step = 1 - np.exp(-x / tau)
-    level = VREF_V + offset + 0.00002 * (spec.temperature_c - 25.0)
-    vref = np.minimum(level * step, np.maximum(vdd - 0.35, 0.0))
-    if spec.behaviour == "stuck_at_zero":
-        vref = np.full_like(t, 0.004)
-    if spec.behaviour == "recollapse":
-        t_fall = t[0] + 0.6 * (t[-1] - t[0])
-        vref = vref * np.exp(-np.clip(t - t_fall, 0.0, None) / 20e-6)
-    running = (vref > 0.5 * level).astype(float)
-    idd = 0.2e-6 + 24e-6 * running * (1 + 0.2 * (spec.temperature_c - 25.0) / 100)
+    design = _parts()[spec.part]
+    if spec.behaviour != "started":
+        design = SCENARIOS[RECIPES[spec.behaviour]].apply(design)
+    cap = simulate(design, ramp_s=spec.ramp_s, temperature_c=spec.temperature_c, t_stop_s=float(t[-1]),
+                   n_samples=MODEL_POINTS)
+    t_model = cap.times()
+    vdd, vref, idd = (np.interp(t, t_model, cap.channel(role).values, left=0.0)
+                      for role in ("supply", "output", "supply_current"))
     # Both voltage channels have their zero two codes up the screen, so noise around 0 V is kept.
     vdd = _quantise(vdd + rng.normal(0, 0.003, t.size) + 0.020, 0.010) - 0.020
     vref = _quantise(vref + rng.normal(0, 0.0015, t.size) + 0.016, 0.008) - 0.016
