@@ -25,13 +25,19 @@ def test_block_parser_any_bytes_any_split_same_answer(wire, cuts, options):
     assert check_block(wire, cuts, options) in ("block", "error")
 
 
-def test_the_csv_target_can_fail():
-    """The check is live: a capture with time going back would be caught, an exception would escape."""
+def test_the_fuzz_checks_are_live(monkeypatch):
+    """A defect would be caught: an exception other than InputError escapes, a split-dependent answer fails."""
     import pytest
 
-    from labtool.errors import InputError
+    from instruments.blocks import make_block
+    from tests.hardening import fuzz_targets
+    from tests.hardening.files import GOOD
 
-    assert check_csv(b"time,vdd,vref\n0,0,0\n1e-6,1,1\n") == "ok"
-    assert check_csv(b"") == "input error"
-    with pytest.raises(InputError):
-        raise InputError("x", "y")  # InputError is what check_csv turns into "input error", nothing else
+    assert check_csv(GOOD) == "ok" and check_csv(b"") == "input error"
+    assert check_block(make_block(b"abc"), [2], {}) == "block"
+    monkeypatch.setattr(fuzz_targets, "read_csv", lambda *args: {}["a defect"])
+    with pytest.raises(KeyError):
+        fuzz_targets.check_csv(GOOD)
+    monkeypatch.setattr(fuzz_targets, "chunked", lambda *args: ("error", "split-dependent"))
+    with pytest.raises(AssertionError):
+        fuzz_targets.check_block(make_block(b"abc"), [2], {})
