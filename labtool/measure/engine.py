@@ -9,15 +9,16 @@ import numpy as np
 from labtool.capture import Capture
 from labtool.errors import MeasurementError
 from labtool.measure.fit import StepFit, fit_step, json_value
+from labtool.measure.levels import segment_level
 from labtool.measure.limits import Limits
-from labtool.measure.startup import StartupMetrics, measure_startup
+from labtool.measure.startup import TAIL_FRACTION, StartupMetrics, measure_startup
 from labtool.measure.verdict import decide
 
 MIN_SAMPLES = 32
 
 # The result fields written to JSON and the store, in this order (issue #3 CLI contract).
 RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz", "damping",
-                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v")
+                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "isupply_final_a")
 
 
 @dataclass(frozen=True)
@@ -36,6 +37,7 @@ class StartupResult:
     vsupply_final_v: float | None
     ramp_v_per_s: float | None
     supply_at_start_v: float | None
+    isupply_final_a: float | None = None  # settled supply current, when the capture records it
     evidence: dict = field(default_factory=dict, compare=False)
     fit: StepFit | None = field(default=None, compare=False)
 
@@ -65,8 +67,8 @@ def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray, np.ndarra
     return t, s, o
 
 
-def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits()) -> StartupResult:
-    """Measure one startup from numpy arrays (s, V, V). Pure: no files, no store."""
+def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits(), supply_current_a=None) -> StartupResult:
+    """Measure one startup from numpy arrays (s, V, V; optionally the supply current in A). Pure."""
     t, s, o = _checked(t_s, supply_v, output_v)
     m = measure_startup(t, s, o, limits)
     fit = _fit(t, o, m)
@@ -75,7 +77,23 @@ def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits()) -> Startu
         verdict=verdict, t_supply_s=m.t_supply_s, delay_s=m.delay_s, rise_s=m.rise_s, settle_s=m.settle_s,
         overshoot_pct=m.overshoot_pct, ring_hz=fit.ring_hz if fit else None, damping=fit.damping if fit else None,
         vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v, ramp_v_per_s=m.ramp_v_per_s,
-        supply_at_start_v=m.supply_at_start_v, evidence=evidence, fit=fit)
+        supply_at_start_v=m.supply_at_start_v, isupply_final_a=_final_level(supply_current_a),
+        evidence=evidence, fit=fit)
+
+
+def _final_level(values) -> float | None:
+    """State level of the settled end of a record (as for vout_final_v), None without a record.
+
+    A stuck part's supply current at leakage level (nA) against the lot's µA tells a dead core from
+    a core that draws current but never reaches its level (common practice, no source).
+    """
+    if values is None:
+        return None
+    v = np.asarray(values, dtype=np.float64)
+    v = v[np.isfinite(v)]
+    if v.size < MIN_SAMPLES:
+        return None
+    return segment_level(v[v.size - max(MIN_SAMPLES, int(v.size * TAIL_FRACTION)):])
 
 
 def _fit(t: np.ndarray, o: np.ndarray, m: StartupMetrics) -> StepFit | None:
@@ -89,8 +107,9 @@ def measure_capture(capture: Capture, limits: Limits = Limits()) -> StartupResul
     """Measure a capture's supply and output channels (errors name the capture's source)."""
     supply = capture.channel("supply").values
     output = capture.channel("output").values
+    current = capture.channel("supply_current").values if capture.has_role("supply_current") else None
     try:
-        return measure_arrays(capture.times(), supply, output, limits)
+        return measure_arrays(capture.times(), supply, output, limits, current)
     except MeasurementError as exc:
         where = capture.provenance.source_path + (f" [{capture.provenance.locator}]" if capture.provenance.locator else "")
         raise MeasurementError(f"{where}: {exc}") from None

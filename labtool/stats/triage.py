@@ -107,17 +107,18 @@ class _Evidence:
             zs.append((x - med) / scale)
         return float(np.median(zs)) if zs else None
 
-    def lot_median(self, column: str) -> float | None:
-        if column not in self.baseline.columns:
-            return None
-        v = pd.to_numeric(self.baseline[column], errors="coerce").dropna()
-        return float(v.median()) if len(v) else None
+    def lot_median(self, column: str, rows: pd.DataFrame | None = None) -> float | None:
+        return _median(self.baseline if rows is None else rows, column)
 
-    def part_median(self, column: str) -> float | None:
-        if column not in self.powered.columns:
-            return None
-        v = pd.to_numeric(self.powered[column], errors="coerce").dropna()
-        return float(v.median()) if len(v) else None
+    def part_median(self, column: str, rows: pd.DataFrame | None = None) -> float | None:
+        return _median(self.powered if rows is None else rows, column)
+
+
+def _median(rows: pd.DataFrame, column: str) -> float | None:
+    if column not in rows.columns:
+        return None
+    v = pd.to_numeric(rows[column], errors="coerce").dropna()
+    return float(v.median()) if len(v) else None
 
 
 def _supply(e: _Evidence) -> Hypothesis:
@@ -134,10 +135,16 @@ def _dead(e: _Evidence) -> Hypothesis:
     per_cell = e.powered.groupby(e.cells, dropna=False)["verdict"].apply(lambda v: float((v == STUCK).mean())) \
         if e.cells and len(e.powered) else pd.Series([e.frac({STUCK})] if len(e.powered) else [], dtype=float)
     score = float(per_cell.min()) if len(per_cell) else 0.0
+    stuck_current = e.part_median("isupply_final_a", e.powered[e.powered["verdict"] == STUCK])
+    lot_current = e.lot_median("isupply_final_a", e.baseline[e.baseline["verdict"] == "started"])
     return Hypothesis(
         "dead_everywhere", "stuck at every ramp and temperature (startup path open, amplifier dead)", score,
         {"n_stuck": int((e.powered["verdict"] == STUCK).sum()), "n_powered": len(e.powered),
-         "n_setups": int(len(per_cell)), "n_setups_all_stuck": int((per_cell == 1.0).sum())},
+         "n_setups": int(len(per_cell)), "n_setups_all_stuck": int((per_cell == 1.0).sum()),
+         "stuck_isupply_a": stuck_current, "lot_isupply_a": lot_current,
+         # Below 1 % of the lot's running current the core and its startup draw nothing (leakage level).
+         "isupply_at_leakage": None if stuck_current is None or not lot_current
+         else bool(stuck_current < 0.01 * lot_current)},
         "With the output stuck, measure the supply current: at leakage level (nA) the core and startup draw "
         "nothing (startup path open or amplifier without bias). Then inject a small current into the "
         "reference node (external kick): starting and staying up means a startup fault, not a dead core.")

@@ -143,3 +143,14 @@ def test_no_supply_when_the_supply_never_reaches_a_reference_given_in_volts():
     r = _measure(1.2 * first_order_step(T, tau_s=5e-6, delay_s=80e-6), supply_ref="1.9")
     assert r.verdict == "no_supply" and r.t_supply_s is None and r.delay_s is None
     assert r.evidence["supply_ref_v"] == 1.9
+
+
+def test_settled_supply_current_is_reported_when_recorded():
+    # Invented capture: 8 µA settled supply current after the start; without the channel it is null.
+    t = np.arange(4000) * 1e-7
+    vdd = 1.8 * np.clip(t / 50e-6, 0, 1)
+    vref = 1.2 * (1 - np.exp(-np.clip(t - 80e-6, 0, None) / 10e-6))
+    idd = 8e-6 * (vref / 1.2) + np.random.default_rng(0).normal(0, 5e-9, t.size)
+    with_current = measure_capture(make_capture(vdd, vref, 1e-7, extra={"idd": idd}))
+    assert with_current.isupply_final_a == pytest.approx(8e-6, rel=0.01)
+    assert measure_capture(make_capture(vdd, vref, 1e-7)).isupply_final_a is None

@@ -108,3 +108,15 @@ def test_one_ringing_capture_is_already_a_finding():
     df.loc[one, ["verdict", "overshoot_pct"]] = ["ringing", 22.0]
     top = triage(df, f"ZR24A/{PART}").hypotheses[0]
     assert top.name == "excess_ringing" and top.score == pytest.approx(0.5 + 0.5 / 18)
+
+
+def test_stuck_part_drawing_only_leakage_current_is_said_so():
+    # Invented lot: started parts draw ~10 µA, the stuck part 2 nA (leakage level; common practice,
+    # no source: a dead core and startup draw nothing but junction leakage).
+    df = _build("dead_everywhere")
+    df["isupply_final_a"] = 10e-6
+    df.loc[df["part"] == PART, "isupply_final_a"] = 2e-9
+    dead = next(h for h in triage(df, f"ZR24A/{PART}").hypotheses if h.name == "dead_everywhere")
+    assert dead.evidence["stuck_isupply_a"] == pytest.approx(2e-9)
+    assert dead.evidence["lot_isupply_a"] == pytest.approx(10e-6)
+    assert dead.evidence["isupply_at_leakage"] is True
