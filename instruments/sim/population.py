@@ -1,7 +1,7 @@
 """The parts on the simulated bench: a design, per-part random variation and per-part overrides.
 
-``sample_runs/population.toml`` is the demo: most parts start, a few are stuck, slow, ringing or
-re-collapse because their overrides make the startup model (labtool.model) behave so. Every trace
+``sample_runs/population.toml`` is the demo: most parts start, a few are stuck, slow or ringing
+because their overrides (recipes of labtool.model.scenarios) make the startup model behave so. Every trace
 the simulated scope returns is a transient of that model, driven by the supply's programmed ramp.
 """
 
