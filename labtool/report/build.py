@@ -52,9 +52,10 @@ class ReportFiles:
 
 @dataclass(frozen=True)
 class Rendered:
-    """What a worker drew: (file name, caption) per PNG, and a returned part's ranked hypotheses."""
+    """What a worker drew: (file name, caption, PNG bytes) per figure, and a returned part's ranked
+    hypotheses. The parent writes the files, so workers on other machines need no shared output folder."""
 
-    files: tuple[tuple[str, str], ...]
+    files: tuple[tuple[str, str, bytes], ...] = field(repr=False)
     hypotheses: tuple = ()
 
 
@@ -65,7 +66,6 @@ class _Job:
     kind: str  # "overview", "group" or "part"
     label: str
     stem: str
-    out_dir: str
     rows: pd.DataFrame = field(repr=False)
     root: str | None = None  # campaign path (or URL) when waveforms can be read
     records: tuple[dict, ...] = field(default=(), repr=False)  # catalog records of the traces to draw
@@ -104,9 +104,7 @@ def render_job(job: _Job) -> Rendered:
     for plot, caption in drawn:
         seen[plot.name] += 1
         name = f"{job.stem}-{plot.name}{'' if seen[plot.name] == 1 else f'-{seen[plot.name]}'}.png"
-        png = plot.png()
-        write_atomic(Path(job.out_dir) / name, lambda tmp: tmp.write_bytes(png), "plot")
-        out.append((name, caption))
+        out.append((name, caption, plot.png()))
     return Rendered(tuple(out), tuple(hypotheses))
 
 
@@ -302,24 +300,27 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
                         for (r, t), why in (predictions.attrs.get("failed", []) if predictions is not None else [])]
         comparisons = comparison_table(compare(table, predictions, by)) if predictions is not None else None
         returned = sorted(set(_returned_parts(table)) | set(parts))
-        jobs = _jobs(table, by, root, camp, out / "plots", predictions, spec_max_delay_s, returned, design)
+        jobs = _jobs(table, by, root, camp, predictions, spec_max_delay_s, returned, design)
     finally:
         if camp is not None and camp is not campaign:
             camp.close()
     outcomes = list(run_batch(render_job, jobs, scheduler, what="report", unit="group"))
     failed = (*model_failed, *((o.item.label, o.error) for o in outcomes if not o.ok))
     rendered = {o.item.label: o.value for o in outcomes if o.ok}
+    for r in rendered.values():
+        for name, _, png in r.files:
+            write_atomic(out / "plots" / name, lambda tmp: tmp.write_bytes(png), "plot")
     about = {"labtool_version": __version__, "generated_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
              "campaign": root or "(measurement table)", "grouped_by": ",".join(by), "limits_key": limits_key,
              "spec_max_delay_s": spec_max_delay_s, "model": getattr(design, "name", None) if design is not None else None,
              "model_samples_per_setup": model_samples if design is not None else None, "seed": seed if design is not None else None}
     workbook = write_workbook(out / "report.xlsx", table, summary=stats, comparison=comparisons, limits=limits,
                               about=about)
-    sections = _sections(table, by, stats, comparisons, jobs, rendered, out / "plots", failed, about, limits)
+    sections = _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limits)
     page = report_html.render_html(title or "Startup report", _subtitle(table, by, about), sections)
     html_path = out / "report.html"
     write_atomic(html_path, lambda tmp: tmp.write_text(page, encoding="utf-8"), "HTML report")
-    pngs = tuple(out / "plots" / name for r in rendered.values() for name, _ in r.files)
+    pngs = tuple(out / "plots" / name for r in rendered.values() for name, _, _ in r.files)
     return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
 
 
@@ -340,8 +341,8 @@ def _predicted_for(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> np.n
     return delays
 
 
-def _jobs(table, by, root, camp, plot_dir, predictions, spec, returned, design) -> list[_Job]:
-    common = dict(out_dir=str(plot_dir), root=root, spec_max_delay_s=spec)
+def _jobs(table, by, root, camp, predictions, spec, returned, design) -> list[_Job]:
+    common = dict(root=root, spec_max_delay_s=spec)
     jobs = [_Job("overview", "Overview", "overview", rows=table, predictions=predictions, group_col=by[0], **common)]
     for key, rows in groups(table, by, "--by"):
         label = group_label(key)
@@ -413,12 +414,10 @@ def _facts(s: Mapping[str, Any]) -> list[tuple[str, str]]:
     return facts
 
 
-def _sections(table, by, stats, comparisons, jobs, rendered, plot_dir, failed, about, limits
-              ) -> list[report_html.Section]:
+def _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limits) -> list[report_html.Section]:
     def pictures(label):
         files = rendered[label].files if label in rendered else ()
-        return [report_html.Picture(caption, (plot_dir / name).read_bytes(), alt=f"{label}: {caption}")
-                for name, caption in files]
+        return [report_html.Picture(caption, png, alt=f"{label}: {caption}") for _, caption, png in files]
 
     findings = {}
     if comparisons is not None:
@@ -447,7 +446,8 @@ def _sections(table, by, stats, comparisons, jobs, rendered, plot_dir, failed, a
     sections.append(report_html.Section("s-failures", "Failures", tables=[report_html.Table(
         f"{len(failures)} captures that did not simply start", shown, note=note)], nav_group="overview"))
     for job in (j for j in jobs if j.kind == "part"):
-        hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.title, "score": h.score, "next experiment": h.next_experiment}
+        hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.title, "score": h.score,
+                             "evidence": plots.evidence_text(h.evidence), "next experiment": h.next_experiment}
                             for i, h in enumerate(rendered[job.label].hypotheses if job.label in rendered else ())])
         sections.append(report_html.Section(report_html.anchor_for("p " + job.label), job.label,
                                             pictures=pictures(job.label), tables=[report_html.Table("Hypotheses", hyp)],

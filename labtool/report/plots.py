@@ -9,6 +9,8 @@ from __future__ import annotations
 import io
 import math
 import textwrap
+import threading
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
@@ -26,6 +28,15 @@ from labtool.units import format_si
 from labtool.report.traces import Envelope, Trace, envelope
 
 _TIME_SCALES = ((1e-9, "ns"), (1e-6, "µs"), (1e-3, "ms"), (1.0, "s"))
+# Matplotlib's rcParams are process-global: figures are styled and drawn one at a time, so threads
+# (a Dask worker runs several) never see each other's temporary settings.
+_DRAWING = threading.RLock()
+
+
+@contextmanager
+def _styled():
+    with _DRAWING, rc_context(style.RC):
+        yield
 
 
 @dataclass(frozen=True)
@@ -38,7 +49,8 @@ class Plot:
 
     def png(self) -> bytes:
         buf = io.BytesIO()
-        self.figure.savefig(buf, format="png", dpi=style.DPI)
+        with _styled():
+            self.figure.savefig(buf, format="png", dpi=style.DPI)
         return buf.getvalue()
 
 
@@ -57,7 +69,7 @@ def time_scale(values_s) -> tuple[float, str]:
 
 
 def _figure(size=style.FIGSIZE_WIDE, **kwargs) -> Figure:
-    with rc_context(style.RC):
+    with _styled():
         fig = Figure(figsize=size, dpi=style.DPI, layout="constrained", **kwargs)
     FigureCanvasAgg(fig)
     return fig
@@ -113,7 +125,7 @@ def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float 
     ``predicted_delays_s``: one array (every panel) or a mapping facet value → array.
     ``bins``: a count or explicit edges in seconds; by default numpy's "auto" rule, 6 to 40 bins.
     """
-    with rc_context(style.RC):
+    with _styled():
         facets = _facets(table, facet, max_facets)
         fig = _figure((9.0, 1.0 + 2.9 * len(facets)))
         grid = fig.add_gridspec(len(facets), 2, width_ratios=(3.2, 1.25))
@@ -191,7 +203,7 @@ def _verdict_bars(ax, counts: Mapping[str, int]) -> None:
 def waveform_overlay(traces: Sequence[Trace], *, title: str, note: str = "") -> Plot:
     """All traces faint, the median envelope bold over its p05–p95 band, and markers at supply
     valid, the 90 % crossing and settling. Supply on the upper panel, reference output below."""
-    with rc_context(style.RC):
+    with _styled():
         env = envelope(traces)
         times = np.concatenate([tr.t_s for tr in traces]) if traces else np.array([])
         span = (float(times.min()), float(times.max())) if times.size else (0.0, 1e-6)
@@ -280,7 +292,7 @@ def delay_vs_conditions(table: pd.DataFrame, *, title: str, group_col: str | Non
     temperature (one series per ramp time, the factor that moves delays most): every capture as a
     small point, per condition the median with its p05–p95 bar, the model's median dashed.
     Delays spanning decades or both signs get a symmetric-log axis."""
-    with rc_context(style.RC):
+    with _styled():
         group_col = group_col if group_col in table.columns else None
         delays = _finite_values(table.get("delay_s", []))
         factor, unit = time_scale(delays)
@@ -397,7 +409,7 @@ def die_table(table: pd.DataFrame) -> pd.DataFrame:
 def wafer_map(table: pd.DataFrame, *, title: str, max_wafers: int = 6) -> Plot:
     """Per wafer, two maps by die position: median startup delay, and the most severe verdict
     (colour, a marker and the legend's text, so it reads without colour too)."""
-    with rc_context(style.RC):
+    with _styled():
         dies = die_table(table)
         wafers = list(dict.fromkeys(dies["wafer"]))[:max_wafers]
         factor, unit = time_scale(dies["delay_median_s"])
@@ -477,7 +489,7 @@ def qq_points(measured_s, predicted_s) -> tuple[np.ndarray, np.ndarray, np.ndarr
 
 
 def qq_plot(measured_s, predicted_s, *, title: str) -> Plot:
-    with rc_context(style.RC):
+    with _styled():
         probs, qm, qp = qq_points(measured_s, predicted_s)
         factor, unit = time_scale(np.concatenate([qm, qp]))
         fig = _figure((5.6, 5.0))
@@ -546,7 +558,7 @@ def triage_sheet(panels: Sequence[TriagePanel], hypotheses: Sequence, captures: 
     """One A4 page for a returned part: its traces against its lot's envelope (a panel per set-up,
     e.g. per ramp time, at most three), its captures with verdicts, and the ranked hypotheses with
     their evidence and the next bench experiment."""
-    with rc_context(style.RC):
+    with _styled():
         fig = _figure(style.FIGSIZE_A4)
         n_rows = min(len(captures), _MAX_TABLE_ROWS)
         grid = fig.add_gridspec(3, 1, height_ratios=(1.25, 0.3 + 0.075 * n_rows, 1.9))

@@ -106,3 +106,16 @@ def test_the_plots_are_the_same_whichever_executor_draws_them(campaign, tmp_path
     assert [p.name for p in here.plots] == [p.name for p in pool.plots]
     for a, b in zip(here.plots, pool.plots):
         assert a.read_bytes() == b.read_bytes(), a.name
+
+
+def test_a_dask_cluster_draws_the_same_report(campaign, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    from labtool.execute import parse_scheduler
+
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False, protocol="tcp",
+                                  dashboard_address=None) as cluster:
+        remote = write_report(campaign, tmp_path / "dask", scheduler=parse_scheduler(cluster.scheduler_address))
+    here = write_report(campaign, tmp_path / "here")
+    assert remote.failed == () and [p.name for p in remote.plots] == [p.name for p in here.plots]
+    for a, b in zip(remote.plots, here.plots):  # two jobs drew at once in one process: styles must not mix
+        assert a.read_bytes() == b.read_bytes(), a.name
