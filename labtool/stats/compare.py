@@ -26,6 +26,7 @@ from scipy import stats
 from labtool.errors import UsageError
 from labtool.stats.predictions import NUMERIC_CONDITIONS, TEXT_CONDITIONS
 from labtool.stats.table import CAME_UP, STUCK, groups, plain, require_columns
+from labtool.units import format_si
 
 ALPHA = 0.05
 # When the delay laws differ, the finding is the spread only if the location shift is small against
@@ -173,15 +174,17 @@ def _finding(c: dict) -> tuple[str, tuple[str, ...], str]:
         else:
             code = "slower" if shift > 0 else "faster"
             ratio = f", ×{c['median_ratio']:.3g}" if c["median_ratio"] is not None else ""
-            words.append(f"{code} than predicted: delays {shift:+.3g} s from the prediction at their set-ups "
-                         f"(median {c['measured_delay_median_s']:.3g} s vs {c['predicted_delay_median_s']:.3g} s"
-                         f"{ratio})")
+            sign = "+" if shift > 0 else "−"
+            words.append(f"{code} than predicted: delays {sign}{format_si(abs(shift), 's')} from the prediction at "
+                         f"their set-ups (median {format_si(c['measured_delay_median_s'], 's')} vs "
+                         f"{format_si(c['predicted_delay_median_s'], 's')}{ratio})")
         found.append(code)
         words[-1] += f"; KS p = {c['ks_pvalue']:.2g}, AD p = {c['ad_pvalue']:.2g}"
     if not found:
         parts = []
         if c["measured_delay_median_s"] is not None and c["predicted_delay_median_s"] is not None:
-            parts.append(f"median delay {c['measured_delay_median_s']:.3g} s vs {c['predicted_delay_median_s']:.3g} s"
+            parts.append(f"median delay {format_si(c['measured_delay_median_s'], 's')} vs "
+                         f"{format_si(c['predicted_delay_median_s'], 's')}"
                          f" (KS p = {c['ks_pvalue'] if c['ks_pvalue'] is None else round(c['ks_pvalue'], 3)})")
         parts.append(f"stuck {c['measured_n_stuck']} of {c['n_measured']} vs {c['predicted_n_stuck']} of "
                      f"{c['n_predicted']} predicted")

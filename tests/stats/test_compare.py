@@ -8,6 +8,7 @@ from scipy import stats
 from labtool.errors import InputError
 from labtool.stats.compare import compare, comparison_table, mixed_prediction
 from labtool.stats.predictions import load_predictions
+from labtool.units import format_si
 from tests.stats.tables import measurement_table, set_verdict
 
 
@@ -53,7 +54,7 @@ def test_delay_findings(scale, expected):
     assert c.findings == (expected,)
     if expected != "consistent":
         assert c.ks_pvalue < 1e-6 and c.median_ratio == pytest.approx(1 / scale, rel=0.1)
-        assert f"{c.measured_delay_median_s:.3g} s" in c.finding_text
+        assert f"median {format_si(c.measured_delay_median_s, 's')} vs" in c.finding_text
 
 
 def test_more_stuck_than_predicted_takes_the_lead():
