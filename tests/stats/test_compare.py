@@ -122,7 +122,7 @@ def test_negative_delays_on_slow_ramps_keep_the_right_direction():
     assert c.finding == "slower"
     assert c.delay_shift_s == pytest.approx(150e-6, rel=0.05)
     assert c.median_ratio is None  # a ratio of negative delays means nothing
-    assert c.finding_text.startswith("slower than predicted: delays +0.000149 s from the prediction")
+    assert c.finding_text.startswith("slower than predicted: delays +149 µs from the prediction")
 
 
 def test_shift_is_taken_per_setup_in_a_mixed_group():
