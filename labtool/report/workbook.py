@@ -50,7 +50,7 @@ NUMBER_FORMATS: Sequence[tuple[str, str]] = (
 )
 HEADER_FONT = Font(bold=True, color="FFFFFF")
 HEADER_FILL = PatternFill("solid", fgColor=style.INKS.ink.lstrip("#"))
-SHEET_NAMES = ("Summary", "Comparison", "Measurements", "Failures", "Limits")
+MAX_CELL_CHARS = 32_767  # the most a spreadsheet cell holds (common practice, no source)
 
 
 def number_format(column: str) -> str | None:
@@ -72,18 +72,27 @@ def cell_value(value: Any) -> Any:
     if value is None or value is pd.NA or value is pd.NaT:
         return None
     if isinstance(value, (dict, list, tuple)):
-        return json.dumps(value, sort_keys=True, default=str)
+        return _text(json.dumps(value, sort_keys=True, default=str))
     if isinstance(value, np.ndarray):
-        return json.dumps(value.tolist())
+        return _text(json.dumps(value.tolist()))
     if isinstance(value, np.generic):
         value = value.item()
     if isinstance(value, float) and not math.isfinite(value):
         return None
-    if isinstance(value, (bool, int, float, str)):
-        return ILLEGAL_CHARACTERS_RE.sub("", value) if isinstance(value, str) else value
+    if isinstance(value, (bool, int, float)):
+        return value
     if isinstance(value, pd.Timestamp):
         return value.isoformat()
-    return ILLEGAL_CHARACTERS_RE.sub("", str(value))
+    return _text(str(value))
+
+
+def _text(text: str) -> str:
+    """Characters XML cannot hold dropped; cut to the 32,767 characters a spreadsheet cell holds."""
+    text = ILLEGAL_CHARACTERS_RE.sub("", text)
+    if len(text) <= MAX_CELL_CHARS:
+        return text
+    note = f" … (cut: {len(text)} characters; the HTML report and the store have all of it)"
+    return text[: MAX_CELL_CHARS - len(note)] + note
 
 
 def _cell(ws, value: Any, fmt: str | None = None) -> WriteOnlyCell:

@@ -97,3 +97,12 @@ def test_a_failed_write_is_one_clear_error_and_leaves_no_partial_file(tmp_path):
     with pytest.raises(UsageError, match=r"r\.xlsx: cannot write the workbook"):
         write_workbook(tmp_path / "r.xlsx", _table())
     assert [p.name for p in tmp_path.iterdir()] == ["r.xlsx"]
+
+
+def test_text_longer_than_a_cell_holds_is_cut_with_a_note(tmp_path):
+    table = _table()
+    table.loc[0, "board"] = "x" * 40_000
+    ws = load_workbook(write_workbook(tmp_path / "r.xlsx", table))["Measurements"]
+    header = [c.value for c in ws[1]]
+    cell = ws.cell(2, header.index("board") + 1).value
+    assert len(cell) == 32_767 and cell.startswith("xxx") and "cut: 40000 characters" in cell
