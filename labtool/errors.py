@@ -16,6 +16,11 @@ class LabtoolError(Exception):
         return self.message
 
 
+def printable(text: str) -> str:
+    """Control characters escaped, so a hostile file name cannot split or forge an error line."""
+    return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
+
+
 class UsageError(LabtoolError):
     """A command-line value or API argument that makes no sense."""
 
@@ -32,7 +37,7 @@ class InputError(LabtoolError):
         self.line = line
         self.field = field
         self.what = what
-        where = self.path
+        where = printable(self.path)
         if line is not None:
             where += f":{line}"
         if field is not None:

@@ -176,7 +176,8 @@ def _zip(members: dict[str, bytes]) -> bytes:
 
 # Odd file names: each holds a bad table, so the message must name the file exactly as given.
 ODD_NAMES = ["with space.csv", "µ-Ωhm 25°C ZR24A.csv", "-leading-dash.csv", "--into.csv",
-             "x" * 200 + ".csv", "semi;colon,comma.csv", "quote'and\"double.csv", "tab\tname.csv"]
+             "x" * 200 + ".csv", "semi;colon,comma.csv", "quote'and\"double.csv", "tab\tname.csv",
+             "new\nline.csv"]
 ODD_TAIL = ":3 [vdd]: 'abc' is not a number"
 ODD_DATA = b"time,vdd,vref\n0,0,0\n1e-6,abc,0\n2e-6,1.8,1.2\n"
 
