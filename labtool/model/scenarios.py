@@ -44,7 +44,8 @@ SCENARIOS: dict[str, Scenario] = {s.name: s for s in (
              "amplifier (100 kHz) then needs microseconds to pull the gate back, so the output overshoots"),
     Scenario("hot_leaky_q1", "recollapse", {"leak_q1_a": 4e-9}, 0.1, 125.0, 0.225,
              "junction leakage at the Q1 node (4 nA at 27 °C, doubling every 10 K: ~3.6 µA at 125 °C) "
-             "leaves no wanted operating point when hot; the core rises during the ramp and falls back"),
+             "leaves no wanted operating point when hot: the output rises while the amplifier is still "
+             "unbiased on the ramp (~0.25 V) and falls back to zero once it is biased"),
     Scenario("trim_ratio_low", "wrong_level", {"r2_over_r1": 7.0}, 10e-6, 25.0, 180e-6,
              "R2/R1 trimmed to 7.0 instead of 9.4: the PTAT term (R2/R1)·VT·ln N is short by ~0.13 V, "
              "the reference settles near 1.07 V", {"expect_v": 1.2}),
