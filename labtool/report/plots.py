@@ -229,7 +229,20 @@ def waveform_overlay(traces: Sequence[Trace], *, title: str, note: str = "") -> 
             ax_s.text(1.0, 1.02, note, transform=ax_s.transAxes, ha="right", va="bottom", fontsize=8,
                       color=style.INKS.slate)
         _event_legend(ax_o, [tr.verdict for tr in traces if "cross90" in tr.events()])
-    return Plot("waveform_overlay", fig, {"n_traces": len(traces), "envelope": env, "time_unit": unit})
+        window = overlay_window(traces, span)
+        ax_o.set_xlim(window[0] / factor, window[1] / factor)
+    return Plot("waveform_overlay", fig, {"n_traces": len(traces), "envelope": env, "time_unit": unit,
+                                          "window_s": window})
+
+
+def overlay_window(traces: Sequence[Trace], span: tuple[float, float]) -> tuple[float, float]:
+    """The time window to show: the whole record, except that when every trace settled the long
+    settled tail is cut 30 % of the way past the last settling instant."""
+    settles = [tr.events().get("settle") for tr in traces]
+    if not traces or any(e is None for e in settles):
+        return span
+    last = max(e[0] for e in settles)
+    return span[0], min(span[1], last + 0.3 * (last - span[0]))
 
 
 def _draw_envelope(ax, env: Envelope, factor: float, label: str = "median") -> None:

@@ -119,6 +119,13 @@ def test_envelope_percentiles_match_numpy_and_skip_traces_outside_their_record()
     assert env.median_v[0] == pytest.approx(np.median([0.0, 0.1, 0.2, 0.3, 0.4, 10.0]))  # six cover the start
 
 
+def test_overlay_cuts_the_settled_tail_only_when_every_trace_settled():
+    settled = [ramp_trace("a", 10e-6), ramp_trace("b", 20e-6)]  # records −40…100 µs, last settled at 25 µs
+    assert plots.waveform_overlay(settled, title="t").data["window_s"] == pytest.approx((-40e-6, 25e-6 + 0.3 * 65e-6))
+    mixed = [*settled, ramp_trace("c", None, verdict="stuck_at_zero")]
+    assert plots.waveform_overlay(mixed, title="t").data["window_s"] == pytest.approx((-40e-6, 100e-6))
+
+
 def test_stuck_trace_has_no_crossing_or_settling_marker():
     plot = plots.waveform_overlay([ramp_trace("a", 10e-6), ramp_trace("b", None, verdict="stuck_at_zero")],
                                   title="mixed")
