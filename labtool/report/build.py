@@ -397,13 +397,25 @@ def _pct(k: int, n: int) -> str:
     return f"{k} ({100.0 * k / n:.1f} %)" if n else str(k)
 
 
-def _facts(s: Mapping[str, Any]) -> list[tuple[str, str]]:
+def _delay_facts(s: Mapping[str, Any], rows: pd.DataFrame) -> list[tuple[str, str]]:
+    """Median and p05–p95 of the delay: per ramp time when the group has several (pooled over ramps
+    that differ by decades, one median would describe no set-up at all)."""
+    spans = [("", s["delay_median_s"], s["delay_p05_s"], s["delay_p95_s"])]
+    if "ramp_s" in rows.columns and rows["ramp_s"].nunique() > 1:
+        spans = [(f" · ramp {format_si(r.ramp_s, 's')}", r.delay_median_s, r.delay_p05_s, r.delay_p95_s)
+                 for r in plots.condition_spread(rows, "ramp_s").itertuples()]
+    out = []
+    for where, med, lo, hi in spans:
+        med, lo, hi = (report_html.display("delay_s", v) for v in (med, lo, hi))
+        out.append((f"median delay{where}", f"{med} (p05–p95 {lo} to {hi})"))
+    return out
+
+
+def _facts(s: Mapping[str, Any], rows: pd.DataFrame) -> list[tuple[str, str]]:
     facts = [("captures", str(s["n"])), ("parts", str(s["n_parts"])), ("started", _pct(s["n_started"], s["n"])),
              ("stuck at zero", _pct(s["n_stuck"], s["n"])),
              ("stuck, 95 % upper bound", report_html.display("stuck_ppm_ucl95", s["stuck_ppm_ucl95"])),
-             ("median delay", report_html.display("delay_median_s", s["delay_median_s"])),
-             ("delay p05–p95", f"{report_html.display('delay_s', s['delay_p05_s'])} – "
-                               f"{report_html.display('delay_s', s['delay_p95_s'])}")]
+             *_delay_facts(s, rows)]
     if s.get("cpk") is not None and pd.notna(s.get("cpk")):
         facts.append(("Cpk (delay spec)", f"{s['cpk']:.2f}"))
     if s.get("delay_fit_distribution"):
@@ -438,7 +450,7 @@ def _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limi
     stats_by_label = {group_label({k: s[k] for k in by}): s for _, s in stats.iterrows()}
     for job in (j for j in jobs if j.kind == "group"):
         s = stats_by_label[job.label]
-        sections.append(report_html.Section(report_html.anchor_for("g " + job.label), job.label, facts=_facts(s),
+        sections.append(report_html.Section(report_html.anchor_for("g " + job.label), job.label, facts=_facts(s, job.rows),
                                             finding=findings.get(job.label, ""), pictures=pictures(job.label)))
     failures = table[table["verdict"] != "started"]
     shown = _columns(failures, (), FAILURE_COLUMNS).head(MAX_HTML_ROWS)

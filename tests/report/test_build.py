@@ -39,6 +39,8 @@ def test_report_writes_html_workbook_and_plots(report, tmp_path):
     for anchor in ("s-overview", "s-g-lot-zr24a", "s-g-lot-zr24b", "s-failures", "s-p-zr24a-p04", "s-limits"):
         assert f'id="{anchor}"' in page and f'href="#{anchor}"' in page
     assert "limits.max_delay_s" in page  # the limits the campaign was measured with
+    # Per ramp time, not pooled over ramps: lot ZR24A's 20 µs-ramp delays are 13, 14, 15, 16 µs.
+    assert re.search(r"<dt>median delay · ramp 20 µs</dt><dd>14\.\d+ µs \(p05–p95 13\.\d+ µs to 15\.\d+ µs\)", page)
 
     wb = load_workbook(files.workbook)
     assert wb.sheetnames == ["Summary", "Measurements", "Failures", "Limits"]
