@@ -128,3 +128,12 @@ def test_reopening_removes_what_a_killed_writer_left(tmp_path):
         assert list(camp.captures()["capture_id"]) == [kept]
     assert list((root / "tmp").iterdir()) == []
     assert (root / kept_path).exists()
+
+
+def test_limits_of_stored_measurements_are_returned_by_key(tmp_path):
+    with Campaign.open(tmp_path / "c", create=True) as camp:
+        cid = camp.add_capture(make_capture(*_ramp(), 1e-6)).capture_id
+        camp.save_measurements([{"capture_id": cid, "verdict": "started"}], limits_key="k1",
+                               limits_json='{"max_delay_s": 5e-05}')
+        assert camp.limits("k1") == {"max_delay_s": 5e-05}
+        assert camp.limits("other") == {}

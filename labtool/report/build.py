@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 import os
 import re
-import sqlite3
 import time
 from collections import Counter
 from dataclasses import dataclass, field
@@ -225,20 +224,6 @@ def _open_inputs(campaign) -> tuple[pd.DataFrame, str | None, Any]:
     return camp.measurements(), str(camp.root), camp
 
 
-def limits_used(root: str | None, limits_key: str | None) -> dict:
-    """The limits a campaign's measurements were made with, read from its catalog (read-only)."""
-    if root is None or not limits_key:
-        return {}
-    try:
-        uri = Path(root, "catalog.sqlite").resolve().as_uri() + "?mode=ro"
-        with sqlite3.connect(uri, uri=True) as conn:
-            row = conn.execute("SELECT limits_json FROM measurements WHERE limits_key = ? LIMIT 1",
-                               (limits_key,)).fetchone()
-    except sqlite3.Error as exc:
-        raise StoreError(f"{root}: cannot read the measurement limits: {exc}") from None
-    return json.loads(row[0]) if row else {}
-
-
 def _load_design(design):
     if design is None or not isinstance(design, (str, os.PathLike)):
         return design
@@ -287,7 +272,7 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
             where = f"{root}: " if root else ""
             raise UsageError(f"{where}no measurements yet; run `labtool measure` on the campaign first")
         limits_key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns else None
-        limits = limits_used(root, limits_key)
+        limits = camp.limits(limits_key) if camp is not None and limits_key else {}
         if spec_max_delay_s is None and limits.get("max_delay_s") is not None:
             spec_max_delay_s = float(limits["max_delay_s"])
         stats = lot_table(lot_statistics(table, by, spec_max_delay_s))

@@ -279,7 +279,8 @@ def triage(measurements: pd.DataFrame, part: str, lot: str | None = None, design
     e = _Evidence(rows=rows, powered=powered, baseline=others[others["verdict"].isin(CAME_UP)], cells=cell_keys(rows))
     hyps = [h(e) for h in HYPOTHESES] if len(powered) else [_supply(e)]
     if design is not None:
-        hyps = [_with_model(h, design, powered) for h in hyps]
+        margin = _escape_margin(design, powered)
+        hyps = [_with_model(h, design, margin) for h in hyps]
     hyps.sort(key=lambda h: -h.score)
     return TriageReport(part=f"{lot}/{part}" if lot else part, lot=lot, n_captures=len(rows), n_baseline=len(others),
                         verdicts={k: int(v) for k, v in rows["verdict"].value_counts().items()},
@@ -290,14 +291,20 @@ _MODEL_RELEVANT = {"dead_everywhere", "slow_ramp_miss", "cold_only_stuck", "hot_
                    "weak_startup_slow"}
 
 
-def _with_model(h: Hypothesis, design, powered: pd.DataFrame) -> Hypothesis:
-    """Add the model's minimum escape current at each measured temperature next to the design's startup current."""
-    if h.name not in _MODEL_RELEVANT or "temperature_c" not in powered.columns:
-        return h
+def _escape_margin(design, powered: pd.DataFrame) -> dict | None:
+    """The model's minimum escape current at each temperature the part was measured at (one DC analysis each)."""
+    if "temperature_c" not in powered.columns:
+        return None
     from labtool.model import dc_analysis
 
     temps = sorted(set(pd.to_numeric(powered["temperature_c"], errors="coerce").dropna()))
-    margin = {f"{t:g}": plain(getattr(dc_analysis(design, t), "i_start_min_a", None)) for t in temps}
+    return {f"{t:g}": plain(getattr(dc_analysis(design, t), "i_start_min_a", None)) for t in temps}
+
+
+def _with_model(h: Hypothesis, design, margin: dict | None) -> Hypothesis:
+    """Add the model's minimum escape current next to the design's startup current."""
+    if h.name not in _MODEL_RELEVANT or margin is None:
+        return h
     return Hypothesis(h.name, h.title, h.score,
                       {**h.evidence, "model_i_start_a": plain(design.i_start_a), "model_i_start_min_a_by_temperature_c": margin},
                       h.next_experiment)

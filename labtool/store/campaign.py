@@ -289,6 +289,12 @@ class Campaign:
         merged = df.merge(results, on="capture_id", how="left", suffixes=("", "_m"))
         return _expand_tags(merged)
 
+    def limits(self, limits_key: str) -> dict:
+        """The limits a set of measurements was made with ({} when none are stored under that key)."""
+        row = self._conn.execute("SELECT limits_json FROM measurements WHERE limits_key = ? LIMIT 1",
+                                 (limits_key,)).fetchone()
+        return json.loads(row[0]) if row else {}
+
     def limits_keys(self) -> list[str]:
         return [r[0] for r in self._conn.execute("SELECT DISTINCT limits_key FROM measurements")]
 
