@@ -106,8 +106,7 @@ def workers_one_vs_two(tmp: Path, n: int = 400) -> None:
 
 _PEAK = textwrap.dedent("""
     import resource, sys
-    from labtool.cli.commands.measure import measure_file as measure_one_file
-from labtool.execute import Scheduler, run_batch
+    from labtool.execute import Scheduler
     from labtool.measure import Limits
     from labtool.measure.batch import measure_campaign
     from labtool.store import Campaign

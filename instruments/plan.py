@@ -13,10 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
-try:
-    import tomllib
-except ImportError:  # Python 3.10
-    import tomli as tomllib
+import tomllib
 
 from instruments.schema import build
 from labtool.errors import PlanError, UsageError

@@ -10,10 +10,7 @@ import hashlib
 import math
 import string
 import time
-try:
-    import tomllib
-except ImportError:  # Python 3.10
-    import tomli as tomllib
+import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping

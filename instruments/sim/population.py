@@ -13,17 +13,15 @@ from typing import Any, Mapping
 
 import numpy as np
 
-try:
-    import tomllib
-except ImportError:  # Python 3.10
-    import tomli as tomllib
+import tomllib
 
 from instruments.schema import build
 from labtool.errors import PlanError
 
 SCHEMA = "labtool-population"
 SCHEMA_VERSION = 1
-DEFAULT_POPULATION = Path("sample_runs") / "population.toml"  # the demo, from the checkout
+# The demo's, beside the (editable) installed package in the source checkout, wherever labtool runs from.
+DEFAULT_POPULATION = Path(__file__).resolve().parents[2] / "sample_runs" / "population.toml"
 
 
 @dataclass(frozen=True)
