@@ -12,7 +12,7 @@ import sys
 from functools import partial
 from pathlib import Path
 
-from labtool.errors import LabtoolError, MeasurementError
+from labtool.errors import LabtoolError, MeasurementError, UsageError
 from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
 from labtool.ingest import IngestOptions, read_path
 from labtool.measure import Limits
@@ -50,8 +50,16 @@ def register(sub) -> None:
 
 
 def _limits(args) -> Limits:
-    base = Limits.from_toml(args.limits) if args.limits else Limits()
-    return base.merged(**{field: getattr(args, flag) for flag, field in _LIMIT_FLAGS.items()})
+    limits = Limits.from_toml(args.limits) if args.limits else Limits()
+    for flag, field in _LIMIT_FLAGS.items():
+        value = getattr(args, flag)
+        if value is None:
+            continue
+        try:
+            limits = limits.merged(**{field: value})
+        except UsageError as exc:  # name the flag the user typed, not the field behind it
+            raise UsageError(f"--{flag.replace('_', '-')}: {str(exc).removeprefix(field + ': ')}") from None
+    return limits
 
 
 def is_campaign(path: str) -> bool:
