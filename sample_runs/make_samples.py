@@ -26,6 +26,7 @@ SEED = 4410
 N_SAMPLES = 1000
 VDD_V = 1.8
 LOTS = {"ZR24A": ("W03", ("p01", "p02")), "ZR24B": ("W07", ("p03", "p04"))}
+DIES = {"p01": (3, 5), "p02": (6, 2), "p03": (4, 4), "p04": (7, 6)}  # (die_x, die_y) on its wafer
 TEMPERATURES_C = (-40.0, 25.0, 125.0)
 RAMPS_S = (10e-6, 1e-3, 0.1)
 # Sample interval and pre-trigger time per ramp: the record shows the whole ramp and the settling.
@@ -56,6 +57,10 @@ class Spec:
     temperature_c: float
     ramp_s: float
     behaviour: str  # "started" or one of the failure kinds
+
+    @property
+    def die(self) -> tuple[int, int]:
+        return DIES[self.part]
 
     @property
     def temp_label(self) -> str:
@@ -142,7 +147,7 @@ def write_plain_csv(path: Path, spec: Spec, tr: Trace) -> None:
 def write_semicolon_csv(path: Path, spec: Spec, tr: Trace) -> None:
     """Semicolon + decimal comma, key/value preamble, times in ms, CRLF, UTF-8 byte-order mark."""
     lines = ["Instrument;bench scope (8-bit)", f"Lot;{spec.lot}", f"Wafer;{spec.wafer}", f"Part;{spec.part}",
-             f"Temperature [°C];{spec.temperature_c:g}", f"Ramp;{RAMP_LABELS[spec.ramp_s]}", "",
+             f"Die X;{spec.die[0]}", f"Die Y;{spec.die[1]}", f"Temperature [°C];{spec.temperature_c:g}", f"Ramp;{RAMP_LABELS[spec.ramp_s]}", "",
              "Time [ms];CH1 VDD [V];CH2 VREF [V]"]
     cols = zip(_num(tr.times() * 1e3, ".6g", ","), _num(tr.vdd_v, ".2f", ","), _num(tr.vref_v, ".3f", ","))
     lines += [f"{a};{b};{c}" for a, b, c in cols]
@@ -189,6 +194,8 @@ def write_workbook(path: Path, items: list[tuple[Spec, Trace]]) -> None:
     for spec, tr in items:
         sheet = wb.create_sheet(f"{spec.part}_{RAMP_LABELS[spec.ramp_s]}")
         sheet.append(("part", spec.part))
+        sheet.append(("die_x", spec.die[0]))
+        sheet.append(("die_y", spec.die[1]))
         sheet.append(("ramp", RAMP_LABELS[spec.ramp_s]))
         sheet.append(())
         sheet.append(("Time (us)", "VDD (V)", "VREF (V)", "IDD (uA)"))
@@ -260,7 +267,7 @@ def main(out_dir: Path) -> list[Path]:
         WRITERS[folder](path, spec, tr)
         written.append(path)
         if folder in IN_MANIFEST:
-            manifest_rows.append([name, spec.lot, spec.wafer, spec.part, f"{spec.temperature_c:g}",
+            manifest_rows.append([name, spec.lot, spec.wafer, spec.part, *spec.die, f"{spec.temperature_c:g}",
                                   RAMP_LABELS[spec.ramp_s], "B1" if spec.lot == "ZR24A" else "B2"])
     book = out_dir / "workbooks" / "ZR24B_W07_125C.xlsx"
     book.parent.mkdir(parents=True, exist_ok=True)
@@ -268,7 +275,7 @@ def main(out_dir: Path) -> list[Path]:
     written.append(book)
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(["file", "lot", "wafer", "part", "temperature_c", "ramp", "board"])
+    writer.writerow(["file", "lot", "wafer", "part", "die_x", "die_y", "temperature_c", "ramp", "board"])
     writer.writerows(manifest_rows)
     (out_dir / "manifest.csv").write_text(buf.getvalue(), encoding="utf-8")
     written.append(out_dir / "manifest.csv")
