@@ -64,7 +64,7 @@ def test_preamble_scaling_formula():
 
 
 def test_error_queue_overflow_reported(bench, sessions):
-    # SCPI-1999: a full queue replaces its newest entry by -350 "Queue overflow".
+    # SCPI-1999 (from memory): a full queue replaces its newest entry by -350 "Queue overflow".
     for _ in range(12):
         sessions["supply"].write(":SOUR1:VOLT 99")
     with pytest.raises(ScpiError) as info:

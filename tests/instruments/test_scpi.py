@@ -1,4 +1,8 @@
-"""SCPI reply forms (SCPI-1999 Vol. 1 §7.2.1, Vol. 2 SYSTem:ERRor?) and IEEE 488.2 common replies."""
+"""SCPI reply forms (SCPI-1999 Vol. 1 §7.2.1, Vol. 2 SYSTem:ERRor?) and IEEE 488.2 common replies.
+
+The reply values are the standards' (../shared/GUIDE.md §3, read in a stored text); the clause
+numbers beside them are from memory.
+"""
 
 import math
 

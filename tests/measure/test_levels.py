@@ -1,4 +1,4 @@
-"""IEEE Std 181-2011 §5.2 histogram state levels on two-level records.
+"""IEEE Std 181-2011 histogram state levels on two-level records (clause 5.2, number from memory).
 
 The records are two-level pulse trains built for the test (invented data, stating a property):
 IEEE 181 defines the low and high state levels as the histogram modes of the lower and upper halves
@@ -37,7 +37,7 @@ def test_histogram_state_levels_of_a_ringing_pulse_train(bits, noise):
     tol = max(q / 2, noise / 10)
     assert levels.low_v == pytest.approx(LOW, abs=tol)
     assert levels.high_v == pytest.approx(HIGH, abs=tol)
-    # IEEE 181 §5.3.3 reference levels: 50 % is halfway between the state levels.
+    # IEEE 181 reference levels (§5.3.3, clause number from memory): 50 % is halfway between the state levels.
     assert levels.reference(0.5) == pytest.approx((LOW + HIGH) / 2, abs=tol)
 
 
@@ -57,7 +57,7 @@ def test_quantisation_step_and_noise_estimates():
     assert quantisation_step(coded) == pytest.approx(q, rel=1e-9)
     assert quantisation_step(rng.normal(0, 1, 50_000)) == 0.0  # continuous values are not quantised
     # noise from first differences: √2·σ per difference, MAD → σ for a normal distribution; 3 % on
-    # 20,000 differences (the standard error of a MAD-based sigma is about 0.78/√n ≈ 0.6 %).
+    # 20,000 differences (the standard error of a MAD-based sigma is about 0.78/√n ≈ 0.6 %; from memory).
     slow = np.linspace(0, 1, 200_000) + rng.normal(0, 0.01, 200_000)
     assert noise_rms(slow) == pytest.approx(0.01, rel=0.03)
     assert segment_level(coded) == pytest.approx(0.6, abs=q / 2)

@@ -1,6 +1,6 @@
 """Startup metrics and the step-model fit against closed-form step responses.
 
-Reference: Ogata, Modern Control Engineering, §5-3 (second-order step: ωd = ωn√(1−ζ²),
+Reference: Ogata, Modern Control Engineering, §5-3 (formulas from memory; second-order step: ωd = ωn√(1−ζ²),
 %OS = 100·exp(−ζπ/√(1−ζ²)), tp = π/ωd; first-order step: 1 − exp(−t/τ)). The waveforms themselves
 are produced by scipy.signal.step / scipy.signal.lsim (reference library). Values marked "GUIDE §3"
 were computed with SciPy and vetted in /work/shared/GUIDE.md §3. Sample rates, ramps, quantisation

@@ -82,7 +82,7 @@ def test_slow_start_above_max_delay():
 def test_ringing_above_max_overshoot():
     r = _measure(1.2 * second_order_step(T, zeta=0.3, wn=2 * np.pi * 100e3, delay_s=80e-6))
     assert r.verdict == "ringing"
-    # Ogata §5-3: %OS = 100·exp(−ζπ/√(1−ζ²)) = 37.23 % for ζ = 0.3
+    # Ogata §5-3 (formula from memory): %OS = 100·exp(−ζπ/√(1−ζ²)) = 37.23 % for ζ = 0.3
     assert r.evidence["overshoot_pct"] == pytest.approx(37.23, abs=0.3)
     assert r.evidence["max_overshoot_pct"] == 10.0
     assert _measure(1.2 * second_order_step(T, zeta=0.3, wn=2 * np.pi * 100e3, delay_s=80e-6),

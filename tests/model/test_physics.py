@@ -37,7 +37,7 @@ def test_node_voltage_against_brentq():
 
 
 def test_saturation_current_temperature_law():
-    # SPICE IS(T) law (Gray/Hurst/Lewis/Meyer §1.3): identity at tnom; at 2·T0 the XTI and Eg factors.
+    # SPICE IS(T) law (Gray/Hurst/Lewis/Meyer §1.3; section from memory): identity at tnom; at 2·T0 the XTI and Eg factors.
     assert physics.saturation_current(1e-17, 27.0, 27.0, 3.0, 1.12) == pytest.approx(1e-17, rel=1e-15)
     t0 = 300.0
     t1 = 2 * t0
@@ -47,7 +47,7 @@ def test_saturation_current_temperature_law():
 
 
 def test_ekv_limits():
-    # EKV interpolation (Enz, Krummenacher, Vittoz 1995): in weak inversion the current rises by e per
+    # EKV interpolation (Enz, Krummenacher, Vittoz 1995; limits from memory): in weak inversion the current rises by e per
     # n·UT of gate drive; in strong inversion it tends to I_spec·((VGS − VT0)/(2·n·UT))² in saturation.
     ut, n, vt0, ispec = physics.thermal_voltage(27.0), 1.35, 0.45, 0.5e-6
     weak = physics.mos_current(np.array([-0.2, -0.2 + n * ut]), 1.0, vt0, n, ispec, ut)
