@@ -42,5 +42,3 @@ class Journal:
                 except json.JSONDecodeError:
                     continue
 
-    def done_steps(self) -> set[str]:
-        return {e["step"] for e in self.events() if e.get("event") == "stored"}

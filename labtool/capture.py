@@ -60,14 +60,6 @@ class TimeBase:
             return self.times_s
         return self.t0_s + self.dt_s * np.arange(self.n, dtype=np.float64)
 
-    @property
-    def duration_s(self) -> float:
-        if self.n < 2:
-            return 0.0
-        if self.times_s is not None:
-            return float(self.times_s[-1] - self.times_s[0])
-        return self.dt_s * (self.n - 1)
-
     @staticmethod
     def from_times(times_s: np.ndarray, rtol: float = 1e-6) -> "TimeBase":
         """Uniform when the steps agree to ``rtol`` of the mean step (scope exports round times)."""
@@ -134,11 +126,6 @@ class Conditions:
         """Fields of ``other`` that are set win over ours; tags are merged."""
         updates = {k: v for k, v in dataclasses.asdict(other).items() if k != "tags" and v is not None}
         return dataclasses.replace(self, **updates, tags={**self.tags, **other.tags})
-
-    def as_dict(self) -> dict[str, Any]:
-        d = dataclasses.asdict(self)
-        d["tags"] = dict(self.tags)
-        return d
 
 
 def coerce_condition(key: str, raw: Any, *, what: str = "conditions") -> Any:
