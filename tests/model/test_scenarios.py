@@ -41,11 +41,12 @@ def test_ringing_recipe_overshoots_and_rings(demo):
     assert r.ring_hz is not None and 2e4 < r.ring_hz < 2e5 and 0.2 < r.damping < 0.9
 
 
-@pytest.mark.parametrize("slot, ramp_s, verdict", [(1, 100e-6, "started"), (5, 10e-6, "ringing"),
-                                                    (6, 100e-6, "stuck_at_zero"), (7, 100e-6, "slow_start")])
-def test_simulated_bench_population_parts_show_their_failure(slot, ramp_s, verdict):
-    # The demo population (sample_runs/population.toml) at the bench's 25 °C, on the plan's record
-    # (3 × ramp + 200 µs, 10 % pre-trigger), measured with a 100 µs delay limit.
+@pytest.mark.parametrize("slot, ramp_s, temperature_c, verdict", [
+    (1, 100e-6, 25.0, "started"), (5, 10e-6, 25.0, "ringing"), (6, 100e-6, 25.0, "stuck_at_zero"),
+    (7, 100e-6, 25.0, "slow_start"), (9, 100e-6, 25.0, "started"), (9, 0.1, 125.0, "recollapse")])
+def test_simulated_bench_population_parts_show_their_failure(slot, ramp_s, temperature_c, verdict):
+    # The demo population (sample_runs/population.toml) on the plans' records (3 × ramp + 200 µs,
+    # 20 % pre-trigger; sim-plan.toml at 25 °C, sim-plan-hot.toml at 125 °C), 100 µs delay limit.
     import numpy as np
 
     from instruments.sim.population import ModelSource, load_population
@@ -53,5 +54,5 @@ def test_simulated_bench_population_parts_show_their_failure(slot, ramp_s, verdi
 
     source = ModelSource(load_population(Path(__file__).resolve().parents[2] / "sample_runs" / "population.toml"))
     t = np.linspace(-0.2 * ramp_s, 3 * ramp_s + 200e-6, 3000)
-    traces = source(slot, np.maximum(t, 0.0), ramp_s=ramp_s, vdd_v=1.8, temperature_c=25.0)
+    traces = source(slot, np.maximum(t, 0.0), ramp_s=ramp_s, vdd_v=1.8, temperature_c=temperature_c)
     assert measure_arrays(t, traces["supply"], traces["output"], Limits(max_delay_s=100e-6)).verdict == verdict
