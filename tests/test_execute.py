@@ -45,3 +45,54 @@ def test_unreachable_dask_scheduler_is_a_clear_error():
     with pytest.raises(UsageError, match="cannot reach the Dask scheduler"):
         unreachable = dataclasses.replace(parse_scheduler("tcp://127.0.0.1:1"), connect_timeout_s=0.5)
         list(run_batch(square_or_fail, [1], unreachable))
+
+
+def test_pool_workers_do_not_outlive_a_killed_parent(tmp_path):
+    # A parent killed with SIGKILL cannot shut its pool down; the workers must go with it, or they
+    # hold the terminal's pipes open and linger for ever.
+    import os
+    import signal
+    import subprocess
+    import sys
+    import textwrap
+    import time
+
+    script = textwrap.dedent("""
+        import os, sys, time
+        from labtool.execute import Scheduler, run_batch
+        from tests.test_execute import sleep_and_report_pid
+        for _ in run_batch(sleep_and_report_pid, [sys.argv[1]] * 4, Scheduler("local", 2)):
+            pass
+    """)
+    proc = subprocess.Popen([sys.executable, "-c", script, str(tmp_path)], cwd=os.getcwd(),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    deadline = time.monotonic() + 60
+    while len(list(tmp_path.glob("*.pid"))) < 2 and time.monotonic() < deadline:
+        time.sleep(0.05)
+    workers = [int(p.stem) for p in tmp_path.glob("*.pid")]
+    assert len(workers) >= 2
+    proc.send_signal(signal.SIGKILL)
+    proc.communicate(timeout=30)  # returns only once no worker holds the pipes
+    time.sleep(0.2)
+    alive = [pid for pid in workers if _alive(pid)]
+    assert alive == []
+
+
+def sleep_and_report_pid(folder):
+    import os
+    import time
+    from pathlib import Path
+
+    Path(folder, f"{os.getpid()}.pid").touch()
+    time.sleep(30)
+
+
+def _alive(pid):
+    import os
+
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    with open(f"/proc/{pid}/stat") as fh:  # a zombie waiting for its reaper is dead
+        return fh.read().split()[2] != "Z"
