@@ -9,6 +9,7 @@ import pandas as pd
 
 from labtool.errors import UsageError
 from labtool.stats.table import plain
+from labtool.units import format_si
 
 
 def load_measurements(campaign_path: str) -> pd.DataFrame:
@@ -27,12 +28,17 @@ def json_line(record: dict) -> str:
                       allow_nan=False)
 
 
-def _cell(value) -> str:
+# A column's unit from its name's suffix (the house's unit-suffixed fields).
+_SUFFIX_UNITS = (("_s", "s"), ("_v", "V"), ("_a", "A"), ("_hz", "Hz"))
+
+
+def _cell(value, column: str = "") -> str:
     value = plain(value)
     if value is None:
         return "-"
     if isinstance(value, float):
-        return f"{value:.4g}"
+        unit = next((u for suffix, u in _SUFFIX_UNITS if column.endswith(suffix)), None)
+        return format_si(value, unit) if unit else f"{value:.4g}"
     if isinstance(value, (list, tuple)):
         return ",".join(map(str, value)) or "-"
     return str(value)
@@ -40,7 +46,7 @@ def _cell(value) -> str:
 
 def text_table(records: Iterable[dict], columns: Sequence[str]) -> str:
     """Fixed-width columns, one header line; missing values as ``-``."""
-    rows = [[_cell(r.get(c)) for c in columns] for r in records]
+    rows = [[_cell(r.get(c), c) for c in columns] for r in records]
     widths = [max([len(c), *(len(r[i]) for r in rows)]) for i, c in enumerate(columns)]
     lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip()]
     lines += ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]
