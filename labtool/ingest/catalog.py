@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import json
 import math
-import os
 from pathlib import Path
 
 import pandas as pd
 
+from labtool.atomic import write_atomic
 from labtool.errors import UsageError
 from labtool.store import Campaign
 
@@ -70,14 +70,7 @@ def write_table(df: pd.DataFrame, target: str) -> None:
     final = Path(target)
     if final.parent and not final.parent.exists():
         raise UsageError(f"--to {target!r}: folder {final.parent} does not exist")
-    tmp = final.with_name(f".{final.name}.{os.getpid()}.part")
-    try:
-        if suffix == ".parquet":
-            df.to_parquet(tmp, index=False)
-        else:
-            df.to_csv(tmp, index=False)
-        os.replace(tmp, final)
-    except OSError as exc:
-        raise UsageError(f"--to {target!r}: cannot write: {exc.strerror or exc}") from None
-    finally:
-        tmp.unlink(missing_ok=True)
+    if suffix == ".parquet":
+        write_atomic(final, lambda tmp: df.to_parquet(tmp, index=False), "table")
+    else:
+        write_atomic(final, lambda tmp: df.to_csv(tmp, index=False), "table")

@@ -25,7 +25,7 @@ from labtool.errors import LabtoolError, StoreError, UsageError
 from labtool.execute import Scheduler, run_batch
 from labtool.report import html as report_html
 from labtool.report import plots
-from labtool.report.files import write_atomic
+from labtool.atomic import write_atomic
 from labtool.report.traces import Trace, envelope, trace_from_capture
 from labtool.report.workbook import write_workbook
 from labtool.stats.compare import comparison_table, compare, mixed_prediction

@@ -22,7 +22,7 @@ from openpyxl.styles import Alignment, Font, PatternFill
 from openpyxl.utils import get_column_letter
 
 from labtool.report import style
-from labtool.report.files import write_atomic
+from labtool.atomic import write_atomic
 
 # Catalog columns that describe the store's own files, not the capture: left out of the sheets.
 STORE_INTERNAL_COLUMNS = ("tags_json", "metadata_json", "channels_json", "waveform_path", "waveform_sha256")

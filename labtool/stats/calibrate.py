@@ -410,11 +410,10 @@ def design_toml(design, header: str = "") -> str:
 
 
 def write_design(design, path, header: str = "") -> None:
-    """Write atomically (temporary file, then rename)."""
-    import os
+    """Write the design TOML atomically (temporary file, then rename)."""
     from pathlib import Path
 
-    path = Path(path)
-    tmp = path.with_name(path.name + ".part")
-    tmp.write_text(design_toml(design, header), encoding="utf-8")
-    os.replace(tmp, path)
+    from labtool.atomic import write_atomic
+
+    text = design_toml(design, header)
+    write_atomic(Path(path), lambda tmp: tmp.write_text(text, encoding="utf-8"), "calibrated design")

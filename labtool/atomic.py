@@ -1,4 +1,5 @@
-"""Report files are written whole or not at all: to a temporary name beside the target, then renamed."""
+"""Output files (reports, exports, calibrated designs) are written whole or not at all: to a temporary
+name beside the target, then renamed. (The campaign store has its own protocol under its write lock.)"""
 
 from __future__ import annotations
 
@@ -16,6 +17,7 @@ def write_atomic(path: Path, write: Callable[[Path], object], what: str = "file"
         write(tmp)
         os.replace(tmp, path)
     except OSError as exc:
-        tmp.unlink(missing_ok=True)
         raise UsageError(f"{path}: cannot write the {what} ({exc.strerror or exc})") from None
+    finally:
+        tmp.unlink(missing_ok=True)  # gone already after the rename; a failed write leaves nothing
     return path
