@@ -216,18 +216,7 @@ class Campaign:
 
         ``current_only`` keeps the newest version of each (source path, locator).
         """
-        sql = "SELECT * FROM captures c"
-        params: list = []
-        where = []
-        if current_only:
-            where.append("version = (SELECT MAX(version) FROM captures d WHERE d.source_path = c.source_path"
-                         " AND d.locator = c.locator)")
-        if capture_ids is not None:
-            where.append(f"capture_id IN ({','.join('?' * len(capture_ids))})")
-            params.extend(capture_ids)
-        if where:
-            sql += " WHERE " + " AND ".join(where)
-        sql += " ORDER BY source_path, locator, version"
+        sql, params = _catalog_query(current_only, capture_ids)
         df = pd.read_sql_query(sql, self._conn, params=params)
         return _expand_tags(df)
 
@@ -236,10 +225,11 @@ class Campaign:
 
         A worker turns a record into a Capture with :func:`load_capture_record` and needs no catalog.
         """
-        if capture_ids is None:
-            capture_ids = list(self.captures()["capture_id"])
-        cur = self._conn.execute("SELECT * FROM captures LIMIT 0")
-        names = [d[0] for d in cur.description]
+        if capture_ids is None:  # one query for the whole current catalog
+            cur = self._conn.execute(*_catalog_query(True, None))
+            names = [d[0] for d in cur.description]
+            return [dict(zip(names, row)) for row in cur]
+        names = [d[0] for d in self._conn.execute("SELECT * FROM captures LIMIT 0").description]
         out = []
         for cid in capture_ids:
             row = self._conn.execute("SELECT * FROM captures WHERE capture_id = ?", (cid,)).fetchone()
@@ -328,6 +318,19 @@ class Campaign:
         (total,) = self._conn.execute("SELECT COUNT(*) FROM captures").fetchone()
         (n_meas,) = self._conn.execute("SELECT COUNT(*) FROM measurements").fetchone()
         return {"captures": len(df), "versions": int(total), "measurements": int(n_meas), "table": df}
+
+
+def _catalog_query(current_only: bool, capture_ids: Sequence[str] | None) -> tuple[str, list]:
+    """SELECT of catalog rows in catalog order: newest versions only, and/or these ids."""
+    where, params = [], []
+    if current_only:
+        where.append("version = (SELECT MAX(version) FROM captures d WHERE d.source_path = c.source_path"
+                     " AND d.locator = c.locator)")
+    if capture_ids is not None:
+        where.append(f"capture_id IN ({','.join('?' * len(capture_ids))})")
+        params.extend(capture_ids)
+    sql = "SELECT * FROM captures c" + (" WHERE " + " AND ".join(where) if where else "")
+    return sql + " ORDER BY source_path, locator, version", params
 
 
 def load_capture_record(root: str, rec: dict) -> Capture:
