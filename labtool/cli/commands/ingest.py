@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import sys
 
+from labtool.cli.columns import add_column_options, column_picks
 from labtool.execute import add_scheduler_option, parse_scheduler
 from labtool.ingest import IngestOptions, ingest_paths, load_manifest
 from labtool.ingest.conditions import compile_name_pattern
@@ -20,10 +21,7 @@ def register(sub) -> None:
                         "lot, wafer, die_x, die_y, part, temperature_c (temp_c), ramp_s (ramp), vdd_v, repeat "
                         "are typed, any other field becomes a tag")
     p.add_argument("--manifest", metavar="F", help="run sheet (CSV or XLSX): a file column and condition columns")
-    p.add_argument("--supply", metavar="N", help="column holding the supply voltage")
-    p.add_argument("--output", metavar="N", help="column holding the reference output")
-    p.add_argument("--enable", metavar="N", help="column holding the enable signal")
-    p.add_argument("--supply-current", metavar="N", help="column holding the supply current")
+    add_column_options(p)
     add_scheduler_option(p)
     p.set_defaults(handler=run)
 
@@ -33,8 +31,7 @@ def run(args) -> int:
         compile_name_pattern(args.name_pattern)  # a bad pattern is a usage error before any file is read
     scheduler = parse_scheduler(args.scheduler)
     manifest = load_manifest(args.manifest) if args.manifest else None
-    options = IngestOptions(name_pattern=args.name_pattern, manifest=manifest, supply=args.supply,
-                            output=args.output, enable=args.enable, supply_current=args.supply_current)
+    options = IngestOptions(name_pattern=args.name_pattern, manifest=manifest, **column_picks(args))
     with Campaign.open(args.into, create=True) as campaign:
         report = ingest_paths(args.paths, campaign, options, scheduler,
                               exclude=[args.manifest] if args.manifest else ())

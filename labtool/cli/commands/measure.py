@@ -12,6 +12,7 @@ import sys
 from functools import partial
 from pathlib import Path
 
+from labtool.cli.columns import add_column_options, column_picks
 from labtool.errors import LabtoolError, MeasurementError, UsageError
 from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
 from labtool.ingest import IngestOptions, read_path
@@ -34,8 +35,7 @@ def register(sub) -> None:
     p = sub.add_parser("measure", help="startup delay, settling, overshoot, ringing and a verdict per capture")
     p.add_argument("paths", nargs="+", metavar="FILE|CAMPAIGN",
                    help="capture files (CSV, CSV.gz, XLSX) or a campaign directory")
-    p.add_argument("--supply", metavar="N", help="name of the supply column (files only)")
-    p.add_argument("--output", metavar="N", help="name of the reference-output column (files only)")
+    add_column_options(p, note=" (files only)")
     p.add_argument("--supply-ref", metavar="X", help="supply valid level: percent of its final level (90%%) or volts")
     p.add_argument("--supply-min", metavar="V", help="no_supply when the supply never reaches this voltage")
     p.add_argument("--expect", metavar="V", help="expected output level (volts)")
@@ -81,7 +81,7 @@ def _file_rows(paths: list[str], args, limits: Limits, scheduler):
     """Yield ("ok", row) / ("error", message) for every capture of every file, in input order."""
     if not paths:
         return
-    work = partial(measure_file, IngestOptions(supply=args.supply, output=args.output), limits)
+    work = partial(measure_file, IngestOptions(**column_picks(args)), limits)
     for outcome in run_batch(work, paths, scheduler, what="measure", unit="file"):
         if outcome.ok:
             yield from outcome.value
