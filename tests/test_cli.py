@@ -3,10 +3,11 @@
 import subprocess
 import sys
 
+import numpy as np
+
 from labtool.cli import main
 from labtool.store import Campaign
 from tests.builders import make_capture
-import numpy as np
 
 
 def test_store_error_exits_3_with_one_line(tmp_path, capsys):
