@@ -57,7 +57,7 @@ def parse_body(data: bytes, layout: TextLayout, path: str) -> list[np.ndarray]:
     body = (_squeeze_blanks(data[layout.body_offset:]) if layout.delimiter == " "
             else pa.py_buffer(data).slice(layout.body_offset))
     names = [f"c{k}" for k in range(layout.n_fields)]
-    wanted = names[:len(layout.names)]
+    wanted = [names[k] for k in layout.columns]
     try:
         table = _arrow_read(body, names, wanted, layout)
     except (pa.ArrowInvalid, pa.ArrowTypeError) as exc:
@@ -98,7 +98,7 @@ def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) 
         if len(fields) != layout.n_fields:
             return InputError(path, f"{len(fields)} field{'s' if len(fields) != 1 else ''}, expected "
                                     f"{layout.n_fields} (line cut short or extra delimiter)", line=line)
-        for k, name in enumerate(layout.names):
+        for k, name in zip(layout.columns, layout.names):
             cell = fields[k].strip().strip('"').strip()
             if cell.lower() in NA_TOKENS or number.match(cell):
                 continue

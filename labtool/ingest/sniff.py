@@ -20,7 +20,9 @@ from labtool.errors import InputError, UsageError
 from labtool.units import parse_unit
 
 HEAD_BYTES = 256 * 1024
-HEAD_LINES = 256  # lines the sniffer looks at (scope preambles are a few dozen)
+HEAD_LINES = 256  # lines the sniffer looks at first (scope preambles are a few dozen)
+LONG_HEAD_LINES = 16384  # ... and at most, when no table starts in the first HEAD_LINES (long preambles)
+LONG_HEAD_BYTES = 4 * 1024 * 1024
 SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
 
 # Caps that keep time and memory bounded on hostile or broken files; each refusal says which cap.
@@ -49,17 +51,33 @@ _LINE_END_BYTE = re.compile(rb"[\r\n]")
 _NON_BLANK = re.compile(rb"\S")
 _BRACKET = re.compile(r"^(.*?)\s*[\[(]\s*([^\[\]()]*?)\s*[\])]\s*$")
 _SPICE = re.compile(r"^[vViI]\(.+\)$")
+_IN_UNIT = re.compile(r"^(.*?\S)?\s*\bin\s+(\S+)$")  # "Time in s", "C1 in V", a bare "in s"
 # Lower-case unit suffixes after an underscore, as lab scripts name columns (t_us, vdd_v, idd_ua).
 _SUFFIX_UNITS = {"s": "s", "ms": "ms", "us": "us", "ns": "ns", "ps": "ps", "v": "V", "mv": "mV",
                  "uv": "uV", "a": "A", "ma": "mA", "ua": "uA", "na": "nA", "pa": "pA"}
 
 
+# Temperature units: degrees Celsius, never the coulomb "C" with a prefix (and no prefixes at all).
+_CELSIUS = re.compile(r"^(?:°\s*C|º\s*C|℃|deg\s*C|degC|degrees?\s*C(?:elsius)?|celsius)$", re.IGNORECASE)
+# Unit cells that mark a sample-index column ("Sequence" under "X"), not a physical unit.
+INDEX_UNIT_WORDS = frozenset({"sequence", "index", "sample", "samples", "no", "no.", "number", "#", "point",
+                              "points", "pt", "pts", "count", "n"})
+
+
 def known_unit(text: str) -> tuple[str, float] | None:
-    """(SI base, factor) for a unit labtool knows, else None."""
+    """(SI base, factor) for a unit labtool knows, else None; degrees Celsius are ("°C", 1.0)."""
+    if _CELSIUS.match(text.strip()):
+        return "°C", 1.0
+    if "°" in text or "℃" in text:
+        return None  # "m°C" and the like: no prefixed temperatures
     try:
         return parse_unit(text)
     except UsageError:
         return None
+
+
+def is_index_unit(text: str | None) -> bool:
+    return bool(text) and text.strip().lower() in INDEX_UNIT_WORDS
 
 
 def split_name_unit(header: str) -> tuple[str, str | None]:
@@ -69,6 +87,9 @@ def split_name_unit(header: str) -> tuple[str, str | None]:
     if m and not _SPICE.match(h):
         name, unit = m.group(1).strip(), m.group(2).strip()
         return (name or h), (unit or None)
+    m = _IN_UNIT.match(h)
+    if m and m.group(1) and known_unit(m.group(2)):
+        return m.group(1).strip(), m.group(2)
     if "/" in h:
         name, _, unit = h.rpartition("/")
         if name.strip() and known_unit(unit.strip()):
@@ -81,9 +102,12 @@ def split_name_unit(header: str) -> tuple[str, str | None]:
 
 
 def strip_unit_brackets(cell: str) -> str:
+    """A units-row cell as a bare unit: "(V)", "[mV]", "in s" → "V", "mV", "s"."""
     s = cell.strip().strip('"').strip()
     if len(s) >= 2 and s[0] in "[(" and s[-1] in "])":
         s = s[1:-1].strip()
+    if s[:3].lower() == "in " and known_unit(s[3:].strip()):
+        s = s[3:].strip()
     return s
 
 
@@ -116,21 +140,38 @@ def _is_text_row(row: Sequence[str], number: re.Pattern) -> bool:
     return any(cells) and not any(number.match(c) for c in cells)
 
 
-def _is_units_row(row: Sequence[str]) -> bool:
-    cells = [strip_unit_brackets(c) for c in row]
-    return any(cells) and all(known_unit(c) for c in cells if c and c != "-")
+def _is_units_row(cells: Sequence[str]) -> bool:
+    """Every filled cell a known unit, "-" or an index marker ("Sequence"), at least one a real unit."""
+    units = [strip_unit_brackets(c) for c in cells]
+    units = [u for u in units if u and u != "-"]
+    return any(known_unit(u) for u in units) and all(known_unit(u) or is_index_unit(u) for u in units)
+
+
+def _is_key_value_comment(row: Sequence[str]) -> bool:
+    """``#size=4064`` or ``% lot: ZR24A``: a commented key/value line, never a header."""
+    first = row[0].strip() if row else ""
+    return bool(first) and first[0] in _COMMENT and _KEY_VALUE.match(first.lstrip(_COMMENT).strip()) is not None
 
 
 @dataclass(frozen=True)
 class TablePosition:
-    """Where the table starts in a list of rows (indices into that list)."""
+    """Where the table starts in a list of rows (indices into that list).
+
+    ``skip`` leading columns hold no data: an empty key column whose preamble rows give one value per
+    channel (``HResolution,2e-8,2e-8``), or key/value cells written beside the first data rows
+    (``side_rows``). ``extras`` are header cells right of the data (``Start``, ``Increment``) with the
+    value written under them in the units row.
+    """
 
     header: int | None
     units: int | None
     data: int
     n_fields: int  # cells per data row as written (a trailing delimiter counts)
-    n_columns: int  # columns that carry names or values
+    n_columns: int  # columns that carry names or values (the skipped ones included)
     n_good: int  # sampled rows after the start that look like data
+    skip: int = 0
+    side_rows: tuple[int, ...] = ()
+    extras: tuple[tuple[str, str], ...] = ()
 
 
 def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
@@ -141,12 +182,21 @@ def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
     return numbers >= 1 and numbers >= texts
 
 
+def _leading_empty(sample: Sequence[Sequence[str]], n_columns: int) -> int:
+    """Leading columns empty in every sampled data row (at most all but one)."""
+    skip = 0
+    while skip < n_columns - 1 and all(skip >= len(r) or not _clean(r[skip]) for r in sample):
+        skip += 1
+    return skip
+
+
 def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT) -> TablePosition | None:
     """Where the data starts, and the header/units rows just above it.
 
     The field count is the most common one among all-numeric rows (ties: the earliest row's), so a
     bad cell or a cut-off line later in the data does not move the start. The data starts at the
-    first all-numeric row of that count followed by a mostly-numeric row (or by nothing).
+    first all-numeric row of that count followed by a mostly-numeric row (or by nothing), or higher
+    up where key/value cells stand beside the data in columns that are empty further down.
     """
     nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
     numeric = [i for i in nonblank if _numericish(rows[i], number)]
@@ -166,23 +216,76 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT)
                 break
     if pos is None:
         return None
-    i = nonblank[pos]
     after = nonblank[pos:]
     n_good = sum(1 for j in after if len(rows[j]) == n_fields and is_data_row(rows[j], number))
-    n_columns = max(_width(rows[j]) for j in after[:SAMPLE_ROWS] if len(rows[j]) == n_fields)
+    sample = [rows[j] for j in after[:SAMPLE_ROWS] if len(rows[j]) == n_fields]
+    n_columns = max(_width(r) for r in sample)
+    skip = _leading_empty(sample, n_columns)
 
-    def header_like(k: int) -> bool:
-        return len(rows[k]) == n_fields and _is_text_row(rows[k], number)
+    def data_cells(k: int) -> list[str]:
+        return list(rows[k][skip:n_columns])
+
+    side: list[int] = []
+    if skip >= 2:  # key and value cells beside the first data rows (empty in the rest)
+        while pos > 0:
+            k = nonblank[pos - 1]
+            if not (len(rows[k]) == n_fields and is_data_row(data_cells(k), number)
+                    and sum(1 for c in rows[k][:skip] if _clean(c)) >= 2):
+                break
+            side.insert(0, k)
+            pos -= 1
+    start = nonblank[pos]
+
+    def header_like(k: int, *, loose: bool) -> bool:
+        """Names over the data columns; ``loose`` (a units row follows): numbers allowed ("1", "2")."""
+        row = rows[k]
+        if _is_key_value_comment(row) or is_data_row(row, number):
+            return False
+        if not (len(row) == n_fields or _width(row) >= n_columns):
+            return False
+        cells = data_cells(k)
+        if loose:
+            return any(_clean(c) and not number.match(_clean(c)) for c in cells)
+        return _is_text_row(cells, number)
 
     above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
     header = units = None
-    if len(above) == 2 and _is_units_row(rows[above[1]]) and header_like(above[0]) and len(rows[above[1]]) <= n_fields:
+    if len(above) == 2 and _is_units_row(data_cells(above[1])) and header_like(above[0], loose=True):
         header, units = above
-    elif above and header_like(above[-1]):
+    elif above and header_like(above[-1], loose=False):
         header = above[-1]
+    if skip == 1 and header is None:  # an empty key column: names and units are keyed rows above the data
+        header, units = _keyed_name_rows(rows, nonblank[:pos], data_cells, number)
+    extras: list[tuple[str, str]] = []
     if header is not None:
-        n_columns = max(n_columns, _width(rows[header]))
-    return TablePosition(header, units, i, n_fields, n_columns, n_good)
+        head = rows[header]
+        under = list(rows[units]) if units is not None else []
+        under += [""] * (len(head) - len(under))
+        named = n_columns
+        for k in range(n_columns, len(head)):
+            if not _clean(head[k]):
+                continue
+            if number.match(_clean(under[k])):  # "Start" over "-1e-05": a time-base value, not a column
+                extras.append((_clean(head[k]), _clean(under[k])))
+            elif k < n_fields and not extras:
+                named = k + 1
+        n_columns = named
+    return TablePosition(header, units, start, n_fields, n_columns, n_good, skip, tuple(side), tuple(extras))
+
+
+def _keyed_name_rows(rows, candidates: list[int], data_cells, number: re.Pattern) -> tuple[int | None, int | None]:
+    """Rows with a key in the first column whose other cells name the channels or give their units
+    (``Source,CH1,CH2``; ``VUnit,V,A``): the last of each kind above the data."""
+    header = units = None
+    for k in candidates:
+        cells = [_clean(c) for c in data_cells(k)]
+        if not _clean(rows[k][0]) or not any(cells):
+            continue
+        if _is_units_row(cells):
+            units = k
+        elif _is_text_row(cells, number) and len(set(c for c in cells if c)) == len([c for c in cells if c]):
+            header = k
+    return header, units
 
 
 def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition) -> tuple[list[str], list[str | None]]:
@@ -197,7 +300,7 @@ def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition) 
         units.append(unit)
     if where.units is not None:
         row = list(rows[where.units]) + [""] * n
-        for k in range(n):
+        for k in range(where.skip, n):
             u = strip_unit_brackets(row[k])
             if u and u != "-":
                 units[k] = u
@@ -248,6 +351,7 @@ class TextLayout:
     n_fields: int
     preamble: dict
     notes: tuple[str, ...]
+    columns: tuple[int, ...] = ()  # field index of each named column (data columns may not start at 0)
 
 
 def decode_line(raw: bytes) -> str:
@@ -289,17 +393,17 @@ def check_line_lengths(data: bytes, path: str) -> None:
                                    f"line end is missing)", line=data.count(b"\r" if cr_only else b"\n", 0, pos) + 1)
 
 
-def split_head(data: bytes) -> list[tuple[int, str]]:
+def split_head(data: bytes, max_lines: int = HEAD_LINES, max_bytes: int = HEAD_BYTES) -> list[tuple[int, str]]:
     """(byte offset, decoded text) of the complete lines in the head of ``data``."""
-    head = data[:HEAD_BYTES]
+    head = data[:max_bytes]
     lines: list[tuple[int, str]] = []
     start = 0
     for m in _LINE_END.finditer(head):
         lines.append((start, decode_line(head[start:m.start()])))
         start = m.end()
-        if len(lines) >= HEAD_LINES:
+        if len(lines) >= max_lines:
             return lines
-    if start < len(head) and len(data) <= HEAD_BYTES:  # the last line, when it is not cut off
+    if start < len(head) and len(data) <= max_bytes:  # the last line, when it is not cut off
         lines.append((start, decode_line(head[start:])))
     return lines
 
@@ -326,6 +430,38 @@ def sniff(data: bytes, path: str) -> TextLayout:
         line = data.count(b"\n", 0, nul) + 1
         raise InputError(path, "binary data (NUL byte), not a text export", line=line)
     lines = split_head(data)
+    best = _best_table(lines)
+    limit = HEAD_LINES
+    while best is None and len(lines) == limit < LONG_HEAD_LINES:
+        # A preamble longer than the usual head: look further, in steps, before giving up.
+        limit *= 4
+        lines = split_head(data, max_lines=limit, max_bytes=LONG_HEAD_BYTES)
+        best = _best_table(lines)
+    if best is None:
+        raise _no_table(path, lines, data[:HEAD_BYTES])
+    delimiter, rows, where = best
+    if where.n_columns > MAX_COLUMNS:
+        raise InputError(path, f"{where.n_columns} columns; at most {MAX_COLUMNS} are read (split the export)",
+                         line=(where.header if where.header is not None else where.data) + 1)
+    names, units = column_names_and_units(rows, where)
+    body_offset = lines[where.data][0]
+    preamble_end = where.header if where.header is not None else where.data
+    pairs, notes = parse_preamble([text for _, text in lines[:preamble_end]], delimiter)
+    for k in where.side_rows:  # key/value cells beside the first data rows
+        side_pairs, side_notes = parse_preamble([delimiter.join(rows[k][:where.skip])], delimiter)
+        pairs.update(side_pairs)
+        notes += side_notes
+    pairs.update(where.extras)
+    decimal = _decimal_mark(data, body_offset, [rows[k] for k in range(where.data, len(rows))], delimiter)
+    return TextLayout(
+        delimiter=delimiter, decimal=decimal, names=tuple(names[where.skip:]), units=tuple(units[where.skip:]),
+        header_line=None if where.header is None else where.header + 1,
+        first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
+        preamble=pairs, notes=tuple(notes), columns=tuple(range(where.skip, where.n_columns)))
+
+
+def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], TablePosition] | None:
+    """The delimiter whose reading of the head gives the best table: a header, most data rows, most columns."""
     best = None
     for rank, delimiter in enumerate(DELIMITERS):
         rows = [split_fields(text, delimiter) for _, text in lines]
@@ -335,22 +471,7 @@ def sniff(data: bytes, path: str) -> TextLayout:
         score = (where.header is not None, where.n_good, where.n_columns, -rank)
         if best is None or score > best[0]:
             best = (score, delimiter, rows, where)
-    if best is None:
-        raise _no_table(path, lines, data[:HEAD_BYTES])
-    _, delimiter, rows, where = best
-    if where.n_columns > MAX_COLUMNS:
-        raise InputError(path, f"{where.n_columns} columns; at most {MAX_COLUMNS} are read (split the export)",
-                         line=(where.header if where.header is not None else where.data) + 1)
-    names, units = column_names_and_units(rows, where)
-    body_offset = lines[where.data][0]
-    preamble_end = where.header if where.header is not None else where.data
-    pairs, notes = parse_preamble([text for _, text in lines[:preamble_end]], delimiter)
-    decimal = _decimal_mark(data, body_offset, [rows[k] for k in range(where.data, len(rows))], delimiter)
-    return TextLayout(
-        delimiter=delimiter, decimal=decimal, names=tuple(names), units=tuple(units),
-        header_line=None if where.header is None else where.header + 1,
-        first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
-        preamble=pairs, notes=tuple(notes))
+    return None if best is None else best[1:]
 
 
 def _decimal_mark(data: bytes, body_offset: int, sample: list[list[str]], delimiter: str) -> str:
