@@ -17,6 +17,7 @@ import numpy as np
 from labtool.errors import MeasurementError, UsageError
 
 ROLES = ("supply", "output", "enable", "supply_current", "other")
+ROLE_SOURCES = ("name", "shape", "flag", "")
 
 # Condition fields with a type; any other condition is a free-text tag.
 CONDITION_TYPES: dict[str, type] = {
@@ -81,8 +82,12 @@ class Channel:
     role: str
     values: np.ndarray = field(compare=False, repr=False)
     clipped: np.ndarray | None = field(default=None, compare=False, repr=False)
+    role_source: str = ""  # how the role was found: "name", "shape" (the waveform), "flag"; "" for no role
 
     def __post_init__(self):
+        if self.role_source not in ROLE_SOURCES:
+            raise UsageError(f"channel {self.name!r}: role source {self.role_source!r} is not one of "
+                             f"{', '.join(s for s in ROLE_SOURCES if s)}")
         if self.role not in ROLES:
             raise UsageError(f"channel {self.name!r}: role {self.role!r} is not one of {', '.join(ROLES)}")
 
@@ -165,6 +170,18 @@ class Provenance:
     imported_at: str
     locator: str = ""  # sheet name, block index or plan step within the source
     metadata: Mapping[str, str] = field(default_factory=dict)
+    revision: int = 0  # > 0: the same source stored again under other conditions (a new catalog version)
+
+    @property
+    def truncated(self) -> bool:
+        """The file claimed more samples than it holds (``metadata["truncated"]`` says how many)."""
+        return "truncated" in self.metadata
+
+    @property
+    def warnings(self) -> list[str]:
+        """What the importer warned about (rebuilt time base, truncation …), one line each."""
+        text = self.metadata.get("warnings", "")
+        return text.split(" | ") if text else []
 
 
 @dataclass(frozen=True)
@@ -184,8 +201,8 @@ class Capture:
 
     @property
     def capture_id(self) -> str:
-        """Stable id from the raw bytes' hash and the place inside the source."""
-        return capture_id_for(self.provenance.sha256, self.provenance.locator)
+        """Stable id from the raw bytes' hash, the place inside the source and the conditions revision."""
+        return capture_id_for(self.provenance.sha256, self.provenance.locator, self.provenance.revision)
 
     def channel(self, role: str) -> Channel:
         found = [c for c in self.channels if c.role == role]
@@ -202,8 +219,9 @@ class Capture:
         return self.time.array()
 
 
-def capture_id_for(sha256: str, locator: str = "") -> str:
-    return hashlib.sha256(f"{sha256}|{locator}".encode()).hexdigest()[:16]
+def capture_id_for(sha256: str, locator: str = "", revision: int = 0) -> str:
+    key = f"{sha256}|{locator}" + (f"|r{revision}" if revision else "")
+    return hashlib.sha256(key.encode()).hexdigest()[:16]
 
 
 def sha256_bytes(data: bytes) -> str:

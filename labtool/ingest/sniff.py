@@ -323,8 +323,8 @@ def parse_preamble(lines: Sequence[str], delimiter: str) -> tuple[dict[str, str]
         if delimiter != " " and delimiter in text:
             fields = [_clean(f) for f in text.split(delimiter)]
             rest = [f for f in fields[1:] if f]
-            if fields[0] and rest:
-                pair = fields[0].rstrip(":=").strip(), " ".join(rest)
+            if fields[0] and rest:  # one value per channel, all equal ("HResolution,2e-8,2e-8"): that value
+                pair = fields[0].rstrip(":=").strip(), rest[0] if len(set(rest)) == 1 else " ".join(rest)
         if pair is None:
             m = _KEY_VALUE.match(text)
             if m:

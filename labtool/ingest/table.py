@@ -17,7 +17,9 @@ from labtool.errors import InputError, UsageError
 from labtool.ingest.conditions import typed_conditions
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.roles import assign_roles
-from labtool.ingest.sniff import known_unit, split_name_unit
+from labtool.ingest.shape import ChannelShape, channel_shape, moves
+from labtool.ingest.sniff import is_index_unit, known_unit, split_name_unit
+from labtool.ingest.timebase import min_max_pairs, rebuild_rounded
 from labtool.units import parse_quantity
 
 # SCPI-1999 Vol. 1 (Syntax and Style), special numeric values: NAN is sent as 9.91E37, INFinity and
@@ -32,11 +34,17 @@ INDEX_NAMES = frozenset({"index", "idx", "sample", "samples", "sample_index", "s
                          "point", "points", "pt", "n", "no", "nr", "num", "number", "#"})
 _INTERVAL_KEYS = frozenset({"sample_interval", "sampling_interval", "sample_period", "sampling_period", "dt",
                             "time_step", "timestep", "x_increment", "xincrement", "xinc", "horizontal_increment",
-                            "time_per_sample", "time_interval", "delta_t", "interval"})
+                            "time_per_sample", "time_interval", "delta_t", "interval", "increment", "hresolution",
+                            "horizontal_resolution", "x_interval", "xinterval", "sample_time", "sampling_time"})
 _RATE_KEYS = frozenset({"sample_rate", "sampling_rate", "samplerate", "sampling_frequency", "sample_frequency",
                         "fs"})
-_START_KEYS = frozenset({"t0", "start_time", "time_offset", "x_origin", "xorigin", "first_sample_time"})
-_LENGTH_KEYS = frozenset({"record_length", "number_of_points", "n_points", "points", "record_points"})
+_START_KEYS = frozenset({"t0", "start_time", "time_offset", "x_origin", "xorigin", "first_sample_time", "start",
+                         "hoffset", "horizontal_offset", "x_offset", "xoffset", "start_x", "x_start"})
+_LENGTH_KEYS = frozenset({"record_length", "number_of_points", "n_points", "points", "record_points", "samples",
+                          "size", "memory_length", "record_size", "number_of_samples", "n_samples", "sample_count",
+                          "data_points", "num_points", "length", "point_count"})
+# A quantity with its unit in parentheses: "80000000(ps)".
+_PAREN_UNIT = re.compile(r"^\s*([-+]?[0-9.]+(?:[eE][-+]?\d+)?)\s*\(\s*([^()]+?)\s*\)\s*$")
 # What a channel of each role must be measured in.
 ROLE_UNITS = {"supply": "V", "output": "V", "enable": "V", "supply_current": "A"}
 
@@ -79,6 +87,9 @@ def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: boo
         text = value.strip()
         if "." not in text:
             text = text.replace(",", ".")
+        text = _PAREN_UNIT.sub(r"\1 \2", text)
+        if " " in text.strip() and all(_PAREN_UNIT.match(f"{w}(s)") for w in text.split()):
+            text = text.split()[0]  # one value per channel ("2e-08 2e-08 4e-08"): the first channel's
         text = re.sub(r"\s*(S/s|Sa/s|sps|SPS)$", "Hz", text)
         if key_unit and re.fullmatch(r"[-+0-9.eE]+", text):
             text = f"{text} {key_unit}"
@@ -119,22 +130,55 @@ def _first_bad(mask: np.ndarray) -> int:
     return int(np.argmax(mask))
 
 
-def _time_base(table: RawTable, t_col: int | None, index_col: int | None, factors: list[float]) -> TimeBase:
+@dataclass
+class _Findings:
+    """What building a capture noticed beyond the table itself: warnings and provenance notes."""
+
+    warnings: list[str] = field(default_factory=list)
+    metadata: dict[str, str] = field(default_factory=dict)
+
+    def warn(self, text: str, **meta: str) -> None:
+        self.warnings.append(text)
+        self.metadata.update(meta)
+
+
+def _time_from_column(table: RawTable, t_col: int, factors: list[float], found: _Findings, *,
+                      pairs: bool) -> TimeBase:
     path = table.source_path
-    n = len(table.columns[0])
-    if t_col is not None:
-        t = to_si(table.columns[t_col], factors[t_col])
-        bad = ~np.isfinite(t) | (np.abs(table.columns[t_col]) >= SCPI_INFINITY)
-        if bad.any():
-            k = _first_bad(bad)
-            raise InputError(path, "time is missing or not a number", **table.place(k, t_col))
-        _check_plausible(table, t, np.zeros(n, dtype=bool), t_col, "s")
-        steps = np.diff(t)
-        if (steps <= 0).any():
-            k = _first_bad(steps <= 0) + 1
-            raise InputError(path, f"time does not increase ({t[k]:.9g} s after {t[k - 1]:.9g} s)",
-                             **table.place(k, t_col))
-        return TimeBase.from_times(t)
+    raw = table.columns[t_col]
+    t = to_si(raw, factors[t_col])
+    bad = ~np.isfinite(t) | (np.abs(raw) >= SCPI_INFINITY)
+    if bad.any():
+        k = _first_bad(bad)
+        raise InputError(path, "time is missing or not a number", **table.place(k, t_col))
+    _check_plausible(table, t, np.zeros(t.size, dtype=bool), t_col, "s")
+    if pairs:
+        t = t[0::2]
+    steps = np.diff(t)
+    increasing = bool((steps > 0).all())
+    if increasing:
+        base = TimeBase.from_times(t)
+        if base.uniform:
+            return base
+    rebuilt = rebuild_rounded(t, _sample_interval(table))
+    if rebuilt is None and _sample_interval(table) is not None:
+        rebuilt = rebuild_rounded(t, None)
+    if rebuilt is not None:
+        base, q = rebuilt
+        source = "the preamble's sample interval" if base.dt_s == _sample_interval(table) else "the time stamps"
+        note = (f"time stamps printed with {q:.3g} s resolution; uniform time base rebuilt from {source} "
+                f"(dt {base.dt_s:.9g} s, start {base.t0_s:.9g} s)")
+        found.warn(note, time_base_rebuilt=note)
+        return base
+    if increasing:
+        return base
+    k = _first_bad(steps <= 0) + 1
+    row = 2 * k if pairs else k
+    raise InputError(path, f"time does not increase ({t[k]:.9g} s after {t[k - 1]:.9g} s)", **table.place(row, t_col))
+
+
+def _time_without_column(table: RawTable, index_col: int | None, n: int) -> TimeBase:
+    path = table.source_path
     dt = _sample_interval(table)
     start = _meta_value(table, _START_KEYS, "s", strict=False)
     t0 = start[0] if start else 0.0
@@ -164,69 +208,110 @@ def _is_index(values: np.ndarray) -> bool:
     return bool(np.all(np.isfinite(values)) and values[0] == np.floor(values[0]) and np.all(np.diff(values) == 1))
 
 
-def _check_record_length(table: RawTable, n: int) -> None:
+def _length_claim(table: RawTable) -> tuple[str, int] | None:
+    """The first preamble line that says how many samples the record holds (Record Length, #Samples …)."""
     for key, value in table.metadata.items():
-        if _key(key) in _LENGTH_KEYS and re.fullmatch(r"\s*\d+\s*", value):
-            expected = int(value)
-            if expected != n:
-                raise InputError(table.source_path, f"{key} is {expected} but the file holds {n} data rows "
-                                                    f"(truncated or cut)", **table.metadata_place(key))
+        if _key(split_name_unit(key)[0]) in _LENGTH_KEYS:
+            m = re.fullmatch(r"\s*(\d+)\s*(?:\(?\s*(?:pts|points|samples|sa|S)\s*\)?)?\s*", value)
+            if m:
+                return key, int(m.group(1))
+    return None
+
+
+def _check_length(table: RawTable, n_rows: int, n: int, channels: list[Channel], found: _Findings) -> None:
+    """One rule for every length claim: import what is there, flagged ``truncated``, unless nothing moves."""
+    claim = _length_claim(table)
+    if claim is None or claim[1] in (n_rows, n):
+        return
+    key, expected = claim
+    if expected > n:
+        if not any(moves(c.values) for c in channels if c.unit == "V"):
+            raise InputError(table.source_path, f"{key} is {expected} but the file holds {n} samples and none of "
+                                                f"them moves: the cut removed the whole startup",
+                             **table.metadata_place(key))
+        found.warn(f"{key} is {expected} but the file holds {n} samples: imported as truncated",
+                   truncated=f"{n} of {expected} samples")
+    else:
+        found.warn(f"{key} is {expected} but the file holds {n} samples: all of them imported")
+
+
+def _channel_columns(table: RawTable, skip: set[int], pairs: bool, bases, factors):
+    """(name, column, SI base, values, eligible) of every channel; a min/max pair column gives two."""
+    out = []
+    for k in range(len(table.names)):
+        if k in skip:
+            continue
+        values = to_si(table.columns[k], factors[k])
+        if pairs:  # peak detect: the lower and the upper envelope on one time base
+            lower, upper = np.fmin(values[0::2], values[1::2]), np.fmax(values[0::2], values[1::2])
+            out.append((f"{table.names[k]}_min", k, bases[k], lower, False))
+            out.append((f"{table.names[k]}_max", k, bases[k], upper, True))
+        else:
+            out.append((table.names[k], k, bases[k], values, True))
+    return out
 
 
 def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Capture:
     """Check and convert a table; raise InputError naming the line or cell of any problem."""
     path = table.source_path
-    n = len(table.columns[0]) if table.columns else 0
-    if n < 2:
-        raise InputError(path, f"{n} data row{'s' if n != 1 else ''}; a capture needs at least 2 samples",
+    n_rows = len(table.columns[0]) if table.columns else 0
+    if n_rows < 2:
+        raise InputError(path, f"{n_rows} data row{'s' if n_rows != 1 else ''}; a capture needs at least 2 samples",
                          **table.place(None, None))
     seen: dict[str, int] = {}
     for k, name in enumerate(table.names):
         if name in seen:
             raise InputError(path, f"two columns named {name!r}", **table.place(None, k))
         seen[name] = k
-    _check_record_length(table, n)
 
     bases: list[str | None] = []
     factors: list[float] = []
-    for k, unit in enumerate(table.units):
+    index_marked: list[bool] = []
+    for unit in table.units:
         info = known_unit(unit) if unit else None
-        bases.append(info[0] if info else unit)
+        index_marked.append(is_index_unit(unit))
+        bases.append(None if index_marked[-1] else (info[0] if info else unit))
         factors.append(info[1] if info else 1.0)
-    keys = [_key(name) for name in table.names]
-    t_col = next((k for k, b in enumerate(bases) if b == "s"), None)
-    if t_col is None:
-        t_col = next((k for k, key in enumerate(keys) if key in TIME_NAMES), None)
-    if t_col is not None and bases[t_col] not in (None, "s"):
-        raise InputError(path, f"column {table.names[t_col]!r} is in {bases[t_col]}; time must be in seconds",
-                         **table.place(None, t_col))
-    index_col = None
-    if t_col is None:
-        index_col = next((k for k, key in enumerate(keys)
-                          if key in INDEX_NAMES and bases[k] is None and _is_index(table.columns[k])), None)
-    time_base = _time_base(table, t_col, index_col, factors)
+    found = _Findings()
+    t_col, index_col = _time_and_index_columns(table, bases)
+    pairs = t_col is not None and min_max_pairs(table.columns[t_col])
+    if t_col is not None:
+        time_base = _time_from_column(table, t_col, factors, found, pairs=pairs)
+    else:
+        time_base = _time_without_column(table, index_col, n_rows)
+    if pairs:
+        found.metadata["peak_detect"] = "min/max pairs: every time written twice; channels NAME_min and NAME_max"
 
-    channel_cols = [k for k in range(len(table.names)) if k not in (t_col, index_col)]
-    roles = assign_roles([table.names[k] for k in channel_cols], options.picks(), path=path,
-                         place=table.place(None, None), all_columns=table.names)
+    columns = _channel_columns(table, {t_col, index_col}, pairs, bases, factors)
+    times = time_base.array()
+    shapes: dict[int, ChannelShape] = {}
+
+    def shape_of(j: int) -> ChannelShape:
+        if j not in shapes:
+            shapes[j] = channel_shape(times, columns[j][3])
+        return shapes[j]
+
+    assigned = assign_roles([c[0] for c in columns], options.picks(), path=path, place=table.place(None, None),
+                            all_columns=table.names, shape_of=shape_of, units=[c[2] for c in columns],
+                            eligible=[c[4] for c in columns])
     channels = []
-    for k, role in zip(channel_cols, roles):
+    for (name, k, unit, values, _), (role, source) in zip(columns, assigned):
         want = ROLE_UNITS.get(role)
-        unit = bases[k]
         if want and unit not in (None, want):
             what = f"has an unknown unit {unit!r}" if known_unit(unit) is None else f"is in {unit}"
             raise InputError(path, f"column {table.names[k]!r} ({role}) {what}; it must be in {want}",
                              **table.place(None, k))
-        values = to_si(table.columns[k], factors[k])
-        clipped = ~np.isfinite(values) | (np.abs(table.columns[k]) >= SCPI_INFINITY)
+        raw = table.columns[k] if not pairs else values
+        clipped = ~np.isfinite(values) | (np.abs(raw) >= SCPI_INFINITY)
         if role in ("supply", "output") and clipped.all():
             raise InputError(path, f"column {table.names[k]!r} ({role}) holds no valid values",
                              **table.place(None, k))
         if want:
             _check_plausible(table, values, clipped, k, want)
         values = np.where(clipped, np.nan, values)
-        channels.append(Channel(name=table.names[k], unit=unit or want or "", role=role, values=values,
-                                clipped=clipped if clipped.any() else None))
+        channels.append(Channel(name=name, unit=unit or want or "", role=role, values=values,
+                                clipped=clipped if clipped.any() else None, role_source=source))
+    _check_length(table, n_rows, time_base.n, channels, found)
 
     from_file = typed_conditions(table.metadata, path=path, place=table.metadata_place, known_only=True)
     conditions = table.base_conditions.merged(from_file).merged(table.sheet_conditions)
@@ -235,7 +320,41 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
         metadata["notes"] = " | ".join(table.notes)
     if table.layout:
         metadata["layout"] = table.layout
+    metadata.update(found.metadata)
+    if found.warnings:
+        metadata["warnings"] = " | ".join(found.warnings)
     provenance = Provenance(source_path=path, sha256=sha256, importer=table.importer,
                             imported_at=time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                             locator=table.locator, metadata=metadata)
     return Capture(time=time_base, channels=tuple(channels), conditions=conditions, provenance=provenance)
+
+
+def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[int | None, int | None]:
+    """The time column (in seconds, or named like time) and the sample-index column, either may be None.
+
+    A column of consecutive integers is an index, whatever its name, when the preamble gives the interval
+    (so ``x`` or ``Time`` holding 0, 1, 2 … is never read as whole seconds). A table without a header
+    takes its first column as time when it increases throughout.
+    """
+    path = table.source_path
+    keys = [_key(name) for name in table.names]
+    t_col = next((k for k, b in enumerate(bases) if b == "s"), None)
+    if t_col is None:
+        t_col = next((k for k, key in enumerate(keys) if key in TIME_NAMES), None)
+    if t_col is not None and bases[t_col] not in (None, "s"):
+        raise InputError(path, f"column {table.names[t_col]!r} is in {bases[t_col]}; time must be in seconds",
+                         **table.place(None, t_col))
+    if t_col is not None and _is_index(table.columns[t_col]) and _sample_interval(table) is not None:
+        return None, t_col
+    if t_col is None:
+        index_col = next((k for k, key in enumerate(keys) if bases[k] is None and _is_index(table.columns[k])
+                          and (key in INDEX_NAMES or is_index_unit(table.units[k]))), None)
+        if index_col is not None:
+            return None, index_col
+        headerless = all(re.fullmatch(r"column\d+", name) for name in table.names)
+        first = table.columns[0]
+        if headerless and len(table.names) >= 2 and np.isfinite(first).all() and (np.diff(first) > 0).all():
+            if _is_index(first) and _sample_interval(table) is not None:
+                return None, 0
+            return 0, None
+    return t_col, None

@@ -52,14 +52,15 @@ TEXT_CASES = [
      "interval.csv:1: Sample Interval: 'fast' is not a quantity in s"),
     ("negative.csv", b"Sample Interval,-2e-9\nSample,vdd,vref\n0,0,0\n1,0.5,0\n",
      "negative.csv:1: Sample Interval: the sample interval must be positive"),
-    ("short.csv", b"x,y\nRecord Length,100\ntime,vdd,vref\n" + GOOD_ROWS.encode(),
-     "short.csv:2: Record Length is 100 but the file holds 3 data rows (truncated or cut)"),
+    ("short.csv", b"x,y\nRecord Length,100\ntime,vdd,vref\n0,0,0\n1e-6,0,0\n2e-6,0,0\n",
+     "short.csv:2: Record Length is 100 but the file holds 3 samples and none of them moves: the cut removed "
+     "the whole startup"),
     ("hot.csv", b"# temperature: hot\ntime,vdd,vref\n" + GOOD_ROWS.encode(),
      "hot.csv:1: temperature_c = 'hot' is not a valid float"),
-    ("roles.csv", b"time,CH1,CH2\n0,0,0\n1e-6,0.5,0\n",
-     "roles.csv:1: no supply column recognised (columns: time, CH1, CH2); name it with --supply NAME"),
-    ("no_output.csv", b"time,vdd,CH2\n0,0,0\n1e-6,0.5,0\n",
-     "no_output.csv:1: no reference output column recognised (columns: time, vdd, CH2); name it with --output NAME"),
+    ("roles.csv", b"time,node3,node7\n0,0,0\n1e-6,0.5,0\n",
+     "roles.csv:1: no supply column recognised (columns: time, node3, node7); name it with --supply NAME"),
+    ("no_output.csv", b"time,vdd,node7\n0,0,0\n1e-6,0.5,0\n",
+     "no_output.csv:1: no reference output column recognised (columns: time, vdd, node7); name it with --output NAME"),
     ("two_supplies.csv", b"time,vdd,avdd,vref\n0,0,0,0\n1e-6,0.5,0,0\n",
      "two_supplies.csv:1: several columns look like the supply (vdd, avdd); pick one with --supply NAME "
      "(columns: time, vdd, avdd, vref)"),
@@ -132,8 +133,8 @@ XLSX_CASES = [
     ("bad_condition", {"conditions": [("temperature_c", "hot")], "run": TABLE},
      "book.xlsx [conditions!B1]: temperature_c = 'hot' is not a valid float"),
     ("bad_header_cell", {"run": [("ramp", "slow"), (), *TABLE]}, "book.xlsx [run!B1]: ramp_s = 'slow' is not a valid float"),
-    ("roles", {"run": [("t", "CH1", "CH2"), *TABLE[1:]]},
-     "book.xlsx [run!A1]: no supply column recognised (columns: t, CH1, CH2); name it with --supply NAME"),
+    ("roles", {"run": [("t", "node3", "node7"), *TABLE[1:]]},
+     "book.xlsx [run!A1]: no supply column recognised (columns: t, node3, node7); name it with --supply NAME"),
 ]
 
 

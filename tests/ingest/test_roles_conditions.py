@@ -24,13 +24,14 @@ def test_role_by_name(name, role):
 
 def test_roles_by_name_with_optional_channels():
     names = ["CH1 VDD", "CH2 VREF", "EN", "IDD", "CH4"]
-    assert assign_roles(names, {}, path="f.csv") == ["supply", "output", "enable", "supply_current", "other"]
+    assert assign_roles(names, {}, path="f.csv") == [("supply", "name"), ("output", "name"), ("enable", "name"),
+                                                     ("supply_current", "name"), ("other", "")]
 
 
 def test_explicit_picks_take_a_column_away_from_name_matching():
     # vref is picked as the supply on purpose; "ref" then fills the output by name.
     roles = assign_roles(["vref", "ref"], {"supply": "vref"}, path="f.csv")
-    assert roles == ["supply", "output"]
+    assert roles == [("supply", "flag"), ("output", "name")]
 
 
 def test_name_pattern_fields_are_typed_and_others_become_tags():
