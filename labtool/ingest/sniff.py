@@ -246,7 +246,7 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT)
         cells = data_cells(k)
         if loose:
             return any(_clean(c) and not number.match(_clean(c)) for c in cells)
-        return _is_text_row(cells, number)
+        return _is_text_row(cells, number) and not _is_units_row(cells)
 
     above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
     header = units = None
@@ -445,8 +445,8 @@ def sniff(data: bytes, path: str) -> TextLayout:
                          line=(where.header if where.header is not None else where.data) + 1)
     names, units = column_names_and_units(rows, where)
     body_offset = lines[where.data][0]
-    preamble_end = where.header if where.header is not None else where.data
-    pairs, notes = parse_preamble([text for _, text in lines[:preamble_end]], delimiter)
+    pairs, notes = parse_preamble([text for k, (_, text) in enumerate(lines[:where.data])
+                                   if k not in (where.header, where.units)], delimiter)
     for k in where.side_rows:  # key/value cells beside the first data rows
         side_pairs, side_notes = parse_preamble([delimiter.join(rows[k][:where.skip])], delimiter)
         pairs.update(side_pairs)

@@ -212,7 +212,7 @@ def _length_claim(table: RawTable) -> tuple[str, int] | None:
     """The first preamble line that says how many samples the record holds (Record Length, #Samples …)."""
     for key, value in table.metadata.items():
         if _key(split_name_unit(key)[0]) in _LENGTH_KEYS:
-            m = re.fullmatch(r"\s*(\d+)\s*(?:\(?\s*(?:pts|points|samples|sa|S)\s*\)?)?\s*", value)
+            m = re.fullmatch(r"\s*(\d+)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*", value, re.IGNORECASE)
             if m:
                 return key, int(m.group(1))
     return None

@@ -168,7 +168,8 @@ class Campaign:
                     capture.time.n, capture.time.t0_s, capture.time.dt_s,
                     *(getattr(cond, k) for k in CONDITION_COLUMNS),
                     json.dumps(dict(cond.tags), sort_keys=True), json.dumps(dict(prov.metadata), sort_keys=True),
-                    json.dumps([{"name": c.name, "unit": c.unit, "role": c.role} for c in capture.channels]),
+                    json.dumps([{"name": c.name, "unit": c.unit, "role": c.role, "role_source": c.role_source}
+                                for c in capture.channels]),
                     sum(c.n_clipped for c in capture.channels), rel.as_posix(), hashlib.sha256(payload).hexdigest())
                 self._conn.execute(f"INSERT INTO captures VALUES ({','.join('?' * len(values))})", values)
                 intent.write_text(rel.as_posix())

@@ -26,7 +26,8 @@ def waveform_to_parquet(time: TimeBase, channels: tuple[Channel, ...]) -> bytes:
         if ch.clipped is not None and ch.n_clipped:
             arrays.append(pa.array(np.asarray(ch.clipped, dtype=bool)))
             names.append(CLIP_PREFIX + ch.name)
-    meta = {"channels": [{"name": c.name, "unit": c.unit, "role": c.role} for c in channels],
+    meta = {"channels": [{"name": c.name, "unit": c.unit, "role": c.role, "role_source": c.role_source}
+                         for c in channels],
             "t0_s": time.t0_s, "dt_s": time.dt_s, "n": time.n}
     table = pa.Table.from_arrays(arrays, names=names)
     table = table.replace_schema_metadata({b"labtool": json.dumps(meta).encode()})
@@ -50,5 +51,6 @@ def waveform_from_parquet(source) -> tuple[TimeBase, tuple[Channel, ...]]:
         values = table.column(c["name"]).to_numpy()
         clip_name = CLIP_PREFIX + c["name"]
         clipped = table.column(clip_name).to_numpy(zero_copy_only=False) if clip_name in cols else None
-        channels.append(Channel(name=c["name"], unit=c["unit"], role=c["role"], values=values, clipped=clipped))
+        channels.append(Channel(name=c["name"], unit=c["unit"], role=c["role"], values=values, clipped=clipped,
+                                role_source=c.get("role_source", "")))
     return time, tuple(channels)
