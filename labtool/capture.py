@@ -18,6 +18,9 @@ from labtool.errors import MeasurementError, UsageError
 
 ROLES = ("supply", "output", "enable", "supply_current", "other")
 ROLE_SOURCES = ("name", "shape", "flag", "")
+# Provenance metadata key: when the supply became valid (seconds on the capture's time axis), given by
+# the user for a capture without a supply channel.
+SUPPLY_VALID_KEY = "supply_valid_at_s"
 
 # Condition fields with a type; any other condition is a free-text tag.
 CONDITION_TYPES: dict[str, type] = {

@@ -14,7 +14,7 @@ class IngestOptions:
 
     ``manifest`` maps a file (relative path or base name, as a run sheet writes it) to its conditions,
     as loaded by :func:`labtool.ingest.conditions.load_manifest`. ``supply``, ``output``, ``enable`` and
-    ``supply_current`` name columns explicitly; unset ones are recognised by name. Conditions are
+    ``supply_current`` name columns explicitly; unset ones are recognised by name or waveform. Conditions are
     layered, later wins: the file's own (preamble, conditions sheet), the name pattern, the manifest,
     ``extra_conditions``.
     """
@@ -26,6 +26,9 @@ class IngestOptions:
     enable: str | None = None
     supply_current: str | None = None
     extra_conditions: Conditions | None = None
+    pair_channels: str | None = "auto"  # "auto", "off" or a channel-token expression (labtool.ingest.pairing)
+    supply_valid_at_s: float | None = None  # output-only captures: when the supply became valid
+    update_conditions: bool = False  # a stored file under new conditions: update them, not a new version
 
     def picks(self) -> dict[str, str]:
         """Explicit column picks by role."""

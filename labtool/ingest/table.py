@@ -5,6 +5,7 @@ Both readers end here, so time bases, units, clip flags, roles and file conditio
 
 from __future__ import annotations
 
+import dataclasses
 import re
 import time
 from dataclasses import dataclass, field
@@ -47,6 +48,7 @@ _LENGTH_KEYS = frozenset({"record_length", "number_of_points", "n_points", "poin
 _PAREN_UNIT = re.compile(r"^\s*([-+]?[0-9.]+(?:[eE][-+]?\d+)?)\s*\(\s*([^()]+?)\s*\)\s*$")
 # What a channel of each role must be measured in.
 ROLE_UNITS = {"supply": "V", "output": "V", "enable": "V", "supply_current": "A"}
+LOWER_ENVELOPE, UPPER_ENVELOPE = "_min", "_max"  # channel names of a peak-detect pair
 
 Place = Callable[[int | None, int | None], dict]
 
@@ -236,7 +238,7 @@ def _check_length(table: RawTable, n_rows: int, n: int, channels: list[Channel],
 
 
 def _channel_columns(table: RawTable, skip: set[int], pairs: bool, bases, factors):
-    """(name, column, SI base, values, eligible) of every channel; a min/max pair column gives two."""
+    """(name, column, SI base, values) of every channel; a min/max pair column gives two."""
     out = []
     for k in range(len(table.names)):
         if k in skip:
@@ -244,11 +246,59 @@ def _channel_columns(table: RawTable, skip: set[int], pairs: bool, bases, factor
         values = to_si(table.columns[k], factors[k])
         if pairs:  # peak detect: the lower and the upper envelope on one time base
             lower, upper = np.fmin(values[0::2], values[1::2]), np.fmax(values[0::2], values[1::2])
-            out.append((f"{table.names[k]}_min", k, bases[k], lower, False))
-            out.append((f"{table.names[k]}_max", k, bases[k], upper, True))
+            out.append((f"{table.names[k]}{LOWER_ENVELOPE}", k, bases[k], lower))
+            out.append((f"{table.names[k]}{UPPER_ENVELOPE}", k, bases[k], upper))
         else:
-            out.append((table.names[k], k, bases[k], values, True))
+            out.append((table.names[k], k, bases[k], values))
     return out
+
+
+def infer_roles(names: list[str], units: list[str | None], values: list[np.ndarray], time_base: TimeBase,
+                options: IngestOptions, *, path: str, place: dict, all_columns: list[str]) -> list[tuple[str, str]]:
+    """(role, role_source) per channel: flags, names, then waveform shapes (computed only when asked).
+
+    The lower envelope of a min/max pair takes no role by name or shape: its upper twin does.
+    """
+    shapes: dict[int, ChannelShape] = {}
+
+    def shape_of(j: int) -> ChannelShape:
+        if j not in shapes:
+            shapes[j] = channel_shape(time_base.array(), values[j])
+        return shapes[j]
+
+    lower = {n for n in names if n.endswith(LOWER_ENVELOPE)
+             and n.removesuffix(LOWER_ENVELOPE) + UPPER_ENVELOPE in names}
+    return assign_roles(names, options.picks(), path=path, place=place, all_columns=all_columns,
+                        shape_of=shape_of, units=units, eligible=[n not in lower for n in names])
+
+
+def check_role_unit(path: str, column: str, role: str, unit: str | None, place: dict) -> str | None:
+    """The unit a role needs (None: any), refusing a column in another one."""
+    want = ROLE_UNITS.get(role)
+    if want and unit not in (None, "", want):
+        what = f"has an unknown unit {unit!r}" if known_unit(unit) is None else f"is in {unit}"
+        raise InputError(path, f"column {column!r} ({role}) {what}; it must be in {want}", **place)
+    return want
+
+
+def check_role_values(path: str, column: str, role: str, clipped: np.ndarray, place: dict) -> None:
+    if role in ("supply", "output") and clipped.all():
+        raise InputError(path, f"column {column!r} ({role}) holds no valid values", **place)
+
+
+def assign_capture_roles(capture: Capture, options: IngestOptions) -> Capture:
+    """Roles of a capture joined from several files, by the same rules as a single table's."""
+    path = capture.provenance.source_path
+    chans = capture.channels
+    names = [c.name for c in chans]
+    assigned = infer_roles(names, [c.unit or None for c in chans], [c.values for c in chans], capture.time,
+                           options, path=path, place={}, all_columns=names)
+    out = []
+    for c, (role, source) in zip(chans, assigned):
+        check_role_unit(path, c.name, role, c.unit, {})
+        check_role_values(path, c.name, role, ~np.isfinite(c.values), {})
+        out.append(dataclasses.replace(c, role=role, role_source=source))
+    return dataclasses.replace(capture, channels=tuple(out))
 
 
 def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Capture:
@@ -283,29 +333,15 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
         found.metadata["peak_detect"] = "min/max pairs: every time written twice; channels NAME_min and NAME_max"
 
     columns = _channel_columns(table, {t_col, index_col}, pairs, bases, factors)
-    times = time_base.array()
-    shapes: dict[int, ChannelShape] = {}
-
-    def shape_of(j: int) -> ChannelShape:
-        if j not in shapes:
-            shapes[j] = channel_shape(times, columns[j][3])
-        return shapes[j]
-
-    assigned = assign_roles([c[0] for c in columns], options.picks(), path=path, place=table.place(None, None),
-                            all_columns=table.names, shape_of=shape_of, units=[c[2] for c in columns],
-                            eligible=[c[4] for c in columns])
+    assigned = infer_roles([c[0] for c in columns], [c[2] for c in columns], [c[3] for c in columns],
+                           time_base, options, path=path, place=table.place(None, None),
+                           all_columns=table.names)
     channels = []
-    for (name, k, unit, values, _), (role, source) in zip(columns, assigned):
-        want = ROLE_UNITS.get(role)
-        if want and unit not in (None, want):
-            what = f"has an unknown unit {unit!r}" if known_unit(unit) is None else f"is in {unit}"
-            raise InputError(path, f"column {table.names[k]!r} ({role}) {what}; it must be in {want}",
-                             **table.place(None, k))
+    for (name, k, unit, values), (role, source) in zip(columns, assigned):
+        want = check_role_unit(path, table.names[k], role, unit, table.place(None, k))
         raw = table.columns[k] if not pairs else values
         clipped = ~np.isfinite(values) | (np.abs(raw) >= SCPI_INFINITY)
-        if role in ("supply", "output") and clipped.all():
-            raise InputError(path, f"column {table.names[k]!r} ({role}) holds no valid values",
-                             **table.place(None, k))
+        check_role_values(path, table.names[k], role, clipped, table.place(None, k))
         if want:
             _check_plausible(table, values, clipped, k, want)
         values = np.where(clipped, np.nan, values)

@@ -20,7 +20,7 @@ import os
 import re
 import sqlite3
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Iterable, Iterator, Sequence
 
@@ -70,12 +70,13 @@ CREATE INDEX IF NOT EXISTS measurements_limits ON measurements (limits_key);
 """
 
 CONDITION_COLUMNS = tuple(CONDITION_TYPES)
+REVISION_KEY = "conditions_revision"  # metadata of a source stored again under new conditions
 
 
 @dataclass(frozen=True)
 class AddResult:
     capture_id: str
-    status: str  # "added" or "skipped" (already in the store)
+    status: str  # "added", "skipped" (already in the store) or "updated" (its conditions)
     version: int
 
 
@@ -139,9 +140,12 @@ class Campaign:
         self.close()
 
     # -- captures -------------------------------------------------------------------------
-    def add_capture(self, capture: Capture) -> AddResult:
+    def add_capture(self, capture: Capture, *, update_conditions: bool = False) -> AddResult:
         """Store one capture atomically; the same capture again is skipped, not duplicated.
 
+        The same source again under conditions that set a field to a new value (a new run-sheet value)
+        becomes a new catalog version with the stored conditions updated by the new ones, or, with
+        ``update_conditions``, changes the stored row's conditions in place (status "updated").
         File work happens while this process holds the catalog's write lock, and an intent file in
         ``tmp/`` names the waveform until the row is committed; so after a kill at any moment,
         :meth:`_recover` (under the same lock) knows exactly which file to remove.
@@ -149,7 +153,10 @@ class Campaign:
         cid = capture.capture_id
         row = self._conn.execute("SELECT version FROM captures WHERE capture_id = ?", (cid,)).fetchone()
         if row is not None:
-            return AddResult(cid, "skipped", int(row[0]))
+            revised = self._revised(capture, update_conditions)
+            if isinstance(revised, AddResult):
+                return revised
+            capture, cid = revised, revised.capture_id
         payload = waveform_to_parquet(capture.time, capture.channels)
         rel = Path("waveforms") / _slug(capture.conditions.lot) / f"{cid}.parquet"
         prov, cond = capture.provenance, capture.conditions
@@ -180,6 +187,35 @@ class Campaign:
             raise StoreError(f"{self.root}: cannot write waveform of {cid}: {exc.strerror}") from None
         intent.unlink(missing_ok=True)
         return AddResult(cid, "added", version)
+
+    def _revised(self, capture: Capture, update_conditions: bool) -> "Capture | AddResult":
+        """A stored source seen again: skipped, its conditions updated, or the capture as a new revision."""
+        prov = capture.provenance
+        names = [d[0] for d in self._conn.execute("SELECT * FROM captures LIMIT 0").description]
+        newest = dict(zip(names, self._conn.execute(
+            "SELECT * FROM captures WHERE source_sha256 = ? AND locator = ? ORDER BY rowid DESC LIMIT 1",
+            (prov.sha256, prov.locator)).fetchone()))
+        stored = _record_conditions(newest)
+        wanted = stored.merged(capture.conditions)  # what the new ingest leaves unset stays as stored
+        if wanted == stored:
+            return AddResult(newest["capture_id"], "skipped", int(newest["version"]))
+        if update_conditions:
+            try:
+                with _transaction(self._conn):
+                    self._conn.execute(
+                        f"UPDATE captures SET {', '.join(f'{k} = ?' for k in CONDITION_COLUMNS)}, tags_json = ? "
+                        f"WHERE capture_id = ?", (*(getattr(wanted, k) for k in CONDITION_COLUMNS),
+                                                  json.dumps(dict(wanted.tags), sort_keys=True), newest["capture_id"]))
+            except sqlite3.DatabaseError as exc:
+                raise StoreError(f"{self.root}: cannot update capture {newest['capture_id']}: {exc}") from None
+            return AddResult(newest["capture_id"], "updated", int(newest["version"]))
+        (count,) = self._conn.execute("SELECT COUNT(*) FROM captures WHERE source_sha256 = ? AND locator = ?",
+                                      (prov.sha256, prov.locator)).fetchone()
+        revision = int(count)
+        while self.has_capture(replace(capture, provenance=replace(prov, revision=revision)).capture_id):
+            revision += 1
+        metadata = {**prov.metadata, REVISION_KEY: str(revision)}
+        return replace(capture, conditions=wanted, provenance=replace(prov, revision=revision, metadata=metadata))
 
     def _write_atomic(self, rel: Path, payload: bytes) -> None:
         final = self.root / rel
@@ -351,11 +387,16 @@ def load_capture_record(root: str, rec: dict) -> Capture:
     except (OSError, ValueError) as exc:
         raise StoreError(f"{location}: waveform missing: {getattr(exc, 'strerror', None) or exc}") from None
     time_base, channels = waveform_from_parquet(io.BytesIO(data))
-    cond = Conditions(**{k: rec[k] for k in CONDITION_COLUMNS}, tags=json.loads(rec["tags_json"]))
+    cond = _record_conditions(rec)
+    metadata = json.loads(rec["metadata_json"])
     prov = Provenance(source_path=rec["source_path"], sha256=rec["source_sha256"], importer=rec["importer"],
-                      imported_at=rec["imported_at"], locator=rec["locator"],
-                      metadata=json.loads(rec["metadata_json"]))
+                      imported_at=rec["imported_at"], locator=rec["locator"], metadata=metadata,
+                      revision=int(metadata.get(REVISION_KEY, 0)))
     return Capture(time=time_base, channels=channels, conditions=cond, provenance=prov)
+
+
+def _record_conditions(rec: dict) -> Conditions:
+    return Conditions(**{k: rec[k] for k in CONDITION_COLUMNS}, tags=json.loads(rec["tags_json"]))
 
 
 class _transaction:

@@ -113,7 +113,8 @@ def test_ingest_command_with_pattern_and_explicit_columns(tmp_path, monkeypatch,
     Path("ZR24A_p05_m40C.csv").write_text("t,CH1,CH2\n0,0,0\n1e-6,1.8,1.2\n")
     code = main(["ingest", "ZR24A_p05_m40C.csv", "--into", "camp", "--name-pattern", "{lot}_{part}_{temp_c}C.csv",
                  "--supply", "CH1", "--output", "CH2", "--scheduler", "local:1"])
-    assert code == 0 and capsys.readouterr().out.strip() == "camp: 1 added, 0 skipped, 0 failed (1 file read)"
+    assert code == 0 and capsys.readouterr().out.splitlines() == [
+        "camp: 1 added, 0 skipped, 0 failed (1 file read)", "  roles supply=CH1 (flag), output=CH2 (flag): 1 capture"]
     with Campaign.open("camp") as camp:
         row = camp.captures().iloc[0]
         cap = camp.load_capture(row["capture_id"])
