@@ -155,6 +155,9 @@ def _by_shape(candidates: list[int], shape_of: Callable[[int], ChannelShape], un
         moving = [k for k in volts if shapes[k].moves] or volts
         top = max(shapes[k].final_v for k in moving)
         near = [k for k in moving if shapes[k].final_v >= top - SAME_LEVEL * abs(top)]
+        ramps = [k for k in near if not shapes[k].two_level_edge]
+        if len(volts) >= 3 and ramps:  # with an enable among them, the supply is the one that ramps
+            near = ramps
         supply = min(near, key=onset)
         found[supply] = "supply"
         volts.remove(supply)

@@ -6,18 +6,19 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from labtool.capture import Capture
+from labtool.capture import SUPPLY_VALID_KEY, Capture
 from labtool.errors import MeasurementError
 from labtool.measure.fit import StepFit, fit_step, json_value
 from labtool.measure.levels import segment_level
 from labtool.measure.limits import Limits
-from labtool.measure.startup import TAIL_FRACTION, StartupMetrics, measure_startup
+from labtool.measure.startup import TAIL_FRACTION, StartupMetrics, edge_instant, measure_startup
 from labtool.measure.verdict import decide
 
 MIN_SAMPLES = 32
 
 # The result fields written to JSON and the store, in this order (issue #3 CLI contract).
-RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz", "damping",
+RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "delay_ref", "rise_s", "settle_s", "overshoot_pct", "ring_hz",
+                 "damping",
                  "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "isupply_final_a")
 
 
@@ -38,6 +39,9 @@ class StartupResult:
     ramp_v_per_s: float | None
     supply_at_start_v: float | None
     isupply_final_a: float | None = None  # settled supply current, when the capture records it
+    # What delay_s and settle_s count from: the supply crossing its reference level ("supply"); without a
+    # supply channel, a given supply-valid instant ("given"), the enable edge ("enable") or t = 0 ("trigger").
+    delay_ref: str = "supply"
     evidence: dict = field(default_factory=dict, compare=False)
     fit: StepFit | None = field(default=None, compare=False)
 
@@ -51,15 +55,17 @@ class StartupResult:
 
 
 
-def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
     t = np.asarray(t_s, dtype=np.float64)
-    s = np.asarray(supply_v, dtype=np.float64)
+    s = np.asarray(supply_v, dtype=np.float64) if supply_v is not None else None
     o = np.asarray(output_v, dtype=np.float64)
-    if not (t.ndim == s.ndim == o.ndim == 1) or not (t.size == s.size == o.size):
-        raise MeasurementError(f"time, supply and output must be 1-D of one length (got {t.size}, {s.size}, {o.size})")
-    finite = np.isfinite(s) & np.isfinite(o) & np.isfinite(t)
+    s_size = s.size if s is not None else t.size
+    if not (t.ndim == o.ndim == 1 and (s is None or s.ndim == 1)) or not (t.size == s_size == o.size):
+        raise MeasurementError(f"time, supply and output must be 1-D of one length (got {t.size}, {s_size}, {o.size})")
+    finite = np.isfinite(o) & np.isfinite(t) & (np.isfinite(s) if s is not None else True)
     if not finite.all():  # clipped or not-a-number samples carry no level information
-        t, s, o = t[finite], s[finite], o[finite]
+        t, o = t[finite], o[finite]
+        s = s[finite] if s is not None else None
     if t.size < MIN_SAMPLES:
         raise MeasurementError(f"only {t.size} usable samples; a startup measurement needs at least {MIN_SAMPLES}")
     if not (np.diff(t) > 0).all():
@@ -67,17 +73,23 @@ def _checked(t_s, supply_v, output_v) -> tuple[np.ndarray, np.ndarray, np.ndarra
     return t, s, o
 
 
-def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits(), supply_current_a=None) -> StartupResult:
-    """Measure one startup from numpy arrays (s, V, V; optionally the supply current in A). Pure."""
+def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits(), supply_current_a=None, *,
+                   t_ref_s: float = 0.0, delay_ref: str = "trigger") -> StartupResult:
+    """Measure one startup from numpy arrays (s, V, V; optionally the supply current in A). Pure.
+
+    ``supply_v`` None (an output-only record): delay and settling count from ``t_ref_s``, named by
+    ``delay_ref`` ("given", "enable" or "trigger"); with a supply they count from its reference crossing.
+    """
     t, s, o = _checked(t_s, supply_v, output_v)
-    m = measure_startup(t, s, o, limits)
+    m = measure_startup(t, s, o, limits, t_ref_s=t_ref_s if s is None else None)
     fit = _fit(t, o, m)
     verdict, evidence = decide(m, limits)
     return StartupResult(
         verdict=verdict, t_supply_s=m.t_supply_s, delay_s=m.delay_s, rise_s=m.rise_s, settle_s=m.settle_s,
         overshoot_pct=m.overshoot_pct, ring_hz=fit.ring_hz if fit else None, damping=fit.damping if fit else None,
-        vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v, ramp_v_per_s=m.ramp_v_per_s,
-        supply_at_start_v=m.supply_at_start_v, isupply_final_a=_final_level(supply_current_a),
+        vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v if m.supply is not None else None,
+        ramp_v_per_s=m.ramp_v_per_s, supply_at_start_v=m.supply_at_start_v,
+        isupply_final_a=_final_level(supply_current_a), delay_ref="supply" if s is not None else delay_ref,
         evidence=evidence, fit=fit)
 
 
@@ -105,12 +117,27 @@ def _fit(t: np.ndarray, o: np.ndarray, m: StartupMetrics) -> StepFit | None:
 
 def measure_capture(capture: Capture, limits: Limits = Limits()) -> StartupResult:
     """Measure a capture's supply and output channels (errors name the capture's source)."""
-    supply = capture.channel("supply").values
     output = capture.channel("output").values
     current = capture.channel("supply_current").values if capture.has_role("supply_current") else None
+    supply = capture.channel("supply").values if capture.has_role("supply") else None
     try:
-        return measure_arrays(capture.times(), supply, output, limits, current)
+        t_ref, ref = (0.0, "supply") if supply is not None else delay_reference(capture)
+        return measure_arrays(capture.times(), supply, output, limits, current, t_ref_s=t_ref, delay_ref=ref)
     except MeasurementError as exc:
         where = capture.provenance.source_path + (f" [{capture.provenance.locator}]" if capture.provenance.locator else "")
         raise MeasurementError(f"{where}: {exc}") from None
 
+
+
+def delay_reference(capture: Capture) -> tuple[float, str]:
+    """(instant, name) the delay of a capture without a supply channel counts from: the supply-valid
+    instant the user gave at import, else the enable's 50 % crossing (IEEE Std 181 mid reference
+    level), else the trigger instant t = 0 (scopes that trigger on the supply and keep only the output)."""
+    given = capture.provenance.metadata.get(SUPPLY_VALID_KEY)
+    if given is not None:
+        return float(given), "given"
+    if capture.has_role("enable"):
+        edge = edge_instant(capture.times(), capture.channel("enable").values)
+        if edge is not None:
+            return edge, "enable"
+    return 0.0, "trigger"

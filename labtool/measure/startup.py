@@ -53,12 +53,12 @@ class SignalLevels:
 class StartupMetrics:
     """Everything measured before the fit and the verdict; instants (``*_at_s``) are on the record's time axis."""
 
-    supply: SignalLevels
+    supply: SignalLevels | None  # None: no supply record (delay from another reference instant)
     output: SignalLevels
     t_supply_s: float | None
-    supply_ref_v: float
+    supply_ref_v: float | None
     ramp_v_per_s: float | None
-    supply_peak_v: float
+    supply_peak_v: float | None
     zero_threshold_v: float
     output_peak_v: float
     left_zero: bool
@@ -135,12 +135,21 @@ def _index(t: np.ndarray, instant: float) -> int:
     return int(np.searchsorted(t, instant))
 
 
-def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limits: Limits) -> StartupMetrics:
-    """All startup metrics of one record (arrays already checked: same length, finite, t increasing)."""
-    sup = signal_levels(supply)
+def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray, limits: Limits,
+                    t_ref_s: float | None = None) -> StartupMetrics:
+    """All startup metrics of one record (arrays already checked: same length, finite, t increasing).
+
+    Without a supply record (``supply`` None) the delay and settling count from ``t_ref_s`` (the trigger
+    instant, a given supply-valid instant or the enable edge), reported as ``t_supply_s``; the supply
+    fields are None.
+    """
     out = signal_levels(output)
-    t_supply, supply_ref_v, ramp = _supply_metrics(t, supply, sup, limits)
-    zero_v = _zero_threshold(out, sup.final_v, limits)
+    if supply is None:
+        sup, t_supply, supply_ref_v, ramp = None, t_ref_s, None, None
+    else:
+        sup = signal_levels(supply)
+        t_supply, supply_ref_v, ramp = _supply_metrics(t, supply, sup, limits)
+    zero_v = _zero_threshold(out, sup.final_v if sup is not None else 0.0, limits)
     peak_v = sustained_max(output)
     left_zero = peak_v > zero_v
     tail_is_zero = out.final_v < zero_v
@@ -149,7 +158,8 @@ def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limit
     n = t.size
     tail_start_s = float(t[n - max(MIN_SEGMENT, int(n * TAIL_FRACTION))])
     common = dict(supply=sup, output=out, t_supply_s=t_supply, supply_ref_v=supply_ref_v, ramp_v_per_s=ramp,
-                  supply_peak_v=sustained_max(supply), zero_threshold_v=zero_v, output_peak_v=peak_v,
+                  supply_peak_v=sustained_max(supply) if supply is not None else None, zero_threshold_v=zero_v,
+                  output_peak_v=peak_v,
                   left_zero=left_zero, final_is_zero=final_is_zero, tail_start_s=tail_start_s,
                   record_end_s=float(t[-1]))
     if not left_zero:
@@ -163,7 +173,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray, output: np.ndarray, limit
     t90 = first_crossing(t, output, ref.reference(0.9), h)
     delay = t90 - t_supply if t90 is not None and t_supply is not None else None
     rise = t90 - t10 if t10 is not None and t90 is not None else None
-    at_start = value_at(t, supply, t10) if t10 is not None else None
+    at_start = value_at(t, supply, t10) if t10 is not None and supply is not None else None
     settle_at = settle = None
     settled = False
     overshoot = peak_at = window = None
@@ -197,3 +207,18 @@ def _overshoot(t, output, window: tuple[int, int], t90: float, ref: StateLevels)
         return 0.0, t90
     k = int(np.argmax(np.where(after, vw, -np.inf)))
     return max(0.0, 100.0 * (vw[k] - ref.high_v) / ref.amplitude_v), float(tw[k])
+
+
+def edge_instant(t: np.ndarray, v: np.ndarray) -> float | None:
+    """First crossing of the 50 % reference level between a signal's initial and final state levels
+    (IEEE Std 181-2011 §5.3, mid reference level; clause from memory), None when it never moves."""
+    finite = np.isfinite(v)
+    t, v = t[finite], v[finite]
+    if v.size < MIN_SEGMENT:
+        return None
+    levels = signal_levels(v)
+    sl = StateLevels(levels.initial_v, levels.final_v)
+    if sl.amplitude_v == 0:
+        return None
+    return first_crossing(t, v, sl.reference(0.5), levels.hysteresis(sl.amplitude_v),
+                          direction="rising" if sl.amplitude_v > 0 else "falling")  # active-low enables fall

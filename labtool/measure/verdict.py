@@ -14,10 +14,11 @@ def decide(m: StartupMetrics, limits: Limits) -> tuple[str, dict]:
 
     ``no_supply`` also covers a supply that never crosses its own reference level (possible only
     when ``supply_ref`` is given in volts): without a valid supply there is no instant to measure from.
+    A record without a supply channel never gets ``no_supply``: nothing says its supply failed.
     """
-    if limits.supply_min_v is not None and m.supply_peak_v < limits.supply_min_v:
+    if m.supply is not None and limits.supply_min_v is not None and m.supply_peak_v < limits.supply_min_v:
         return "no_supply", {"supply_peak_v": m.supply_peak_v, "supply_min_v": limits.supply_min_v}
-    if m.t_supply_s is None:
+    if m.supply is not None and m.t_supply_s is None:
         return "no_supply", {"supply_peak_v": m.supply_peak_v, "supply_ref_v": m.supply_ref_v,
                              "reason": "supply never crosses its reference level"}
     if not m.left_zero:
