@@ -23,7 +23,8 @@ HEAD_BYTES = 256 * 1024
 HEAD_LINES = 256  # lines the sniffer looks at first (scope preambles are a few dozen)
 LONG_HEAD_LINES = 16384  # ... and at most, when no table starts in the first HEAD_LINES (long preambles)
 LONG_HEAD_BYTES = 4 * 1024 * 1024
-SAMPLE_ROWS = 16  # data rows that decide which trailing columns are empty
+SAMPLE_ROWS = 16
+MAX_CHANNEL_NUMBER = 64  # a header cell "1" … "64" can name a channel  # data rows that decide which trailing columns are empty
 
 # Caps that keep time and memory bounded on hostile or broken files; each refusal says which cap.
 MAX_FILE_BYTES = 1 << 30  # a file on disk, checked from its size before it is read
@@ -147,6 +148,15 @@ def _is_units_row(cells: Sequence[str]) -> bool:
     return any(known_unit(u) for u in units) and all(known_unit(u) or is_index_unit(u) for u in units)
 
 
+def _channel_numbers(cells: Sequence[str], number: re.Pattern) -> bool:
+    """A text first cell, the others text or small whole numbers (channel numbers, not values)."""
+    clean = [_clean(c) for c in cells]
+    if not clean or not clean[0] or number.match(clean[0]):
+        return False
+    numbers = [c for c in clean[1:] if number.match(c)]
+    return bool(numbers) and all(c.isdigit() and 0 < int(c) <= MAX_CHANNEL_NUMBER for c in numbers)
+
+
 def _is_key_value_comment(row: Sequence[str]) -> bool:
     """``#size=4064`` or ``% lot: ZR24A``: a commented key/value line, never a header."""
     first = row[0].strip() if row else ""
@@ -246,6 +256,8 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT)
         cells = data_cells(k)
         if loose:
             return any(_clean(c) and not number.match(_clean(c)) for c in cells)
+        if _channel_numbers(cells, number) and len(row) == n_fields >= 3:
+            return True  # "Time,1,2": channel numbers in a full-width row whose first cell is text
         return _is_text_row(cells, number) and not _is_units_row(cells)
 
     above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
