@@ -223,3 +223,50 @@ def test_degrees_celsius_are_not_coulomb(tmp_path):
     temp = np.full(N, 25.5)
     (cap,) = read_path(write(tmp_path, "log.csv", "Time (s),Vdd (V),Vref (V),Temp (°C)\n" + rows(t, s, o, temp)))
     assert {c.name: c.unit for c in cap.channels}["Temp"] == "°C"
+
+
+def mixed_folder(folder) -> int:
+    """One file of each layout above (and a channel pair) in one folder; returns the captures it holds."""
+    t, s, o = startup()
+    idx = "".join(f"{k},{s[k].item()!r},{o[k].item()!r},\n" for k in range(N))
+    rounded = "".join(f"{t[k]:.6f},{s[k].item()!r},{o[k].item()!r}\n" for k in range(N))
+    side = [f"Record Length,{N},Points", "Sample Interval,2e-07,s"]
+    beside = "".join((side[k] if k < len(side) else ",,") + "," + line + "\n"
+                     for k, line in enumerate(rows(t, s, o).splitlines()))
+    files = {
+        "numbered.csv": "x-axis,1,2\nsecond,Volt,Volt\n" + rows(t, s, o),
+        "seq.csv": "X,CH1,CH2,Start,Increment\nSequence,Volt,Volt,-1.0E-05,2.0E-07\n" + idx,
+        "names.csv": "Time in s,C1 in V,C2 in V\n" + rows(t, s, o * 0.99),
+        "hash.txt": f"#interval=200000(ps)\n#start=-10(us)\n#size={N}\n" + rows(s, o),
+        "perchannel.csv": "HResolution,2.0E-07,2.0E-07\nHOffset,-1.0E-05,-1.0E-05\nVUnit,V,V\n"
+                          + rows(s, o * 0.98, lead=","),
+        "side.csv": beside,
+        "rounded.csv": "Time,CH1,CH2\n" + rounded,
+        "cr.csv": ("Time,VDD,VREF,,,\n" + rows(t, s * 0.99, o, tail=",,,")).replace("\n", "\r"),
+        "cut.csv": "#Samples: 8192\nTime,VDD,VREF\n" + rows(t, s * 0.98, o),
+        "log.csv": "Time (s),Vdd (V),Vref (V),Temp (°C)\n" + rows(t, s, o, np.full(N, 25.5)),
+        "C1_pair.csv": "Time,Ampl\n" + rows(t, s * 0.97),
+        "C2_pair.csv": "Time,Ampl\n" + rows(t, o * 0.97),
+    }
+    for name, text in files.items():
+        (folder / name).write_text(text)
+    return len(files) - 1  # the pair is one capture
+
+
+def test_a_mixed_folder_ingests_in_one_command(tmp_path, monkeypatch, capsys):
+    from labtool.cli import main
+    from labtool.store import Campaign
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "exports").mkdir()
+    expected = mixed_folder(tmp_path / "exports")
+    assert main(["ingest", "exports", "--into", "camp"]) == 0
+    out, err = capsys.readouterr()
+    assert out.splitlines()[0] == f"camp: {expected} added, 0 skipped, 0 failed ({expected + 1} files read)"
+    assert "  roles supply=1 (shape), output=2 (shape): 1 capture" in out.splitlines()
+    assert "exports/cut.csv: Samples is 8192 but the file holds 120 samples: imported as truncated" in err
+    with Campaign.open("camp") as camp:
+        table = camp.captures()
+        assert len(table) == expected and set(table["n_samples"]) == {N}
+        assert all(dt == pytest.approx(DT, rel=1e-9) for dt in table["dt_s"])
+        assert all(t0 == pytest.approx(T0, rel=1e-9) for t0 in table["t0_s"])
