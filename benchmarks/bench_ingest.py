@@ -27,15 +27,16 @@ from labtool.store import Campaign
 N = 1_000_000
 
 
-def make_csv(n: int = N, *, delimiter: str = ",", decimal: str = ".") -> bytes:
+def make_csv(n: int = N, *, delimiter: str = ",", decimal: str = ".", names: tuple[str, str] = ("CH1 VDD", "CH2 VREF"),
+             time_format: str = ".6e") -> bytes:
     rng = np.random.default_rng(0)
     t = np.arange(n) * 1e-9 - 1e-4
     vdd = np.round(np.clip(t / 1e-4, 0, 1) * 1.8 / 0.01 + rng.normal(0, 0.3, n)) * 0.01
     vref = np.round(1.2 * (1 - np.exp(-np.clip(t - 2e-5, 0, None) / 5e-6)) / 0.008 + rng.normal(0, 0.3, n)) * 0.008
-    lines = "\n".join(f"{a:.6e}{delimiter}{b:.2f}{delimiter}{c:.3f}" for a, b, c in zip(t, vdd, vref))
+    lines = "\n".join(f"{a:{time_format}}{delimiter}{b:.2f}{delimiter}{c:.3f}" for a, b, c in zip(t, vdd, vref))
     if decimal == ",":
         lines = lines.replace(".", ",")
-    units = f"Time [s]{delimiter}CH1 VDD [V]{delimiter}CH2 VREF [V]"
+    units = f"Time [s]{delimiter}{names[0]} [V]{delimiter}{names[1]} [V]"
     return (f"Record Length{delimiter}{n}\n{units}\n{lines}\n").encode()
 
 
@@ -53,7 +54,10 @@ def main() -> None:
         plain = make_csv()
         semi = make_csv(delimiter=";", decimal=",")
         files = {"plain CSV": ("a.csv", plain), "gzip CSV": ("a.csv.gz", gzip.compress(plain, 6, mtime=0)),
-                 "semicolon + decimal comma": ("b.csv", semi)}
+                 "semicolon + decimal comma": ("b.csv", semi),
+                 # the slower paths a layout can take: roles from waveforms, a time base rebuilt from stamps
+                 "generic names (roles by shape)": ("c.csv", make_csv(names=("CH1", "CH2"))),
+                 "times printed to 1 µs (rebuilt)": ("d.csv", make_csv(time_format=".6f"))}
         for label, (name, data) in files.items():
             path = Path(tmp) / name
             path.write_bytes(data)
