@@ -170,3 +170,16 @@ def test_a_single_channel_that_is_not_recognised_is_still_refused_with_company(t
     with pytest.raises(InputError) as info:
         read_path(csv(tmp_path / "odd.csv", ["time", "vdd", "node7"], [t, supply, supply]))
     assert "no reference output column recognised" in str(info.value)
+
+
+def test_another_channel_token_by_expression(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    _pair(tmp_path, ("run7_trace1.csv", "run7_trace2.csv"))
+    assert main(["ingest", ".", "--into", "apart"]) == 0  # "trace1" is no channel token by default
+    assert capsys.readouterr().out.splitlines()[0] == "apart: 2 added, 0 skipped, 0 failed (2 files read)"
+    assert main(["ingest", ".", "--into", "joined", "--pair-channels", r"trace\d"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out == ["joined: 1 added, 0 skipped, 0 failed (2 files read)",
+                   "  roles supply=trace1 (shape), output=trace2 (shape): 1 capture"]
+    assert main(["ingest", ".", "--into", "bad", "--pair-channels", "trace("]) == 2
+    assert "--pair-channels 'trace(': not a regular expression" in capsys.readouterr().err
