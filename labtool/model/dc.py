@@ -128,14 +128,14 @@ def _batch_size(p: Mapping[str, Any]) -> int:
     return sizes.pop() if sizes else 1
 
 
-def operating_points(p: Mapping[str, Any]) -> np.ndarray:
-    """The wanted current of every sample: the highest stable zero of vd(I) (vd falls through zero);
-    NaN where there is none."""
+def operating_points(p: Mapping[str, Any], grid: np.ndarray = _I_GRID, iterations: int = 80) -> np.ndarray:
+    """The wanted current of every sample: the highest stable zero of vd(I) (vd falls through zero) on
+    ``grid``, refined by ``iterations`` bisections; NaN where there is none."""
     q = batched(p)
-    vd = np.broadcast_to(loop_drive(q, _I_GRID), (_batch_size(p), _I_GRID.size))
+    vd = np.broadcast_to(loop_drive(q, grid), (_batch_size(p), grid.size))
     down = (vd[:, :-1] > 0) & (vd[:, 1:] <= 0)
-    k = _I_GRID.size - 2 - np.argmax(down[:, ::-1], axis=1)  # the last down-crossing
-    root = np.atleast_1d(_bisect_log(lambda i: loop_drive(q, i[:, None])[:, 0], _I_GRID[k], _I_GRID[k + 1]))
+    k = grid.size - 2 - np.argmax(down[:, ::-1], axis=1)  # the last down-crossing
+    root = np.atleast_1d(_bisect_log(lambda i: loop_drive(q, i[:, None])[:, 0], grid[k], grid[k + 1], iterations))
     return np.where(down.any(axis=1), root, np.nan)
 
 
@@ -165,21 +165,21 @@ def feedback_map(p: Mapping[str, Any]) -> tuple[FeedbackSegment, ...]:
                  for a, b in zip(starts, ends))
 
 
-def _escape_grid(p: Mapping[str, Any], i_target: np.ndarray) -> np.ndarray:
-    """Core currents from the zero state itself (I = 0) up to ``i_target`` (B,): the log grid from 1 fA
-    and the target itself; grid points above a sample's target repeat its target (B, G + 2)."""
+def _escape_grid(i_target: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """Core currents from the zero state itself (I = 0) up to ``i_target`` (B,): the log ``grid`` from
+    1 fA and the target itself; grid points above a sample's target repeat its target (B, G + 2)."""
     target = np.asarray(i_target, dtype=float)[:, None]
-    return np.concatenate([np.zeros_like(target), np.minimum(_I_GRID[None, :], target), target], axis=1)
+    return np.concatenate([np.zeros_like(target), np.minimum(grid[None, :], target), target], axis=1)
 
 
-def injection_needed(p: Mapping[str, Any], i_target) -> np.ndarray:
+def injection_needed(p: Mapping[str, Any], i_target, grid: np.ndarray = _I_GRID) -> np.ndarray:
     """Smallest current into node 1 for which, at every core current I below ``i_target``, the amplifier
     is alive (input common mode (V1 + V2)/2 above its limit: a > ½) and drives upward (vd > 0), so the
     zero state is no longer an equilibrium. Closed form per grid current: V1 must exceed
     max(V2 − gain term − Vos, 2·Vcm,min − V2), and node 1 carries IS·(e^{V1/VT} − 1) + IL·tanh(V1/VT)
     at that V1. Per sample (B,); ``p`` as from :func:`batched` or scalar."""
     q = batched(p)
-    grid = _escape_grid(q, np.broadcast_to(i_target, (_batch_size(p),)))
+    grid = _escape_grid(np.broadcast_to(i_target, (_batch_size(p),)), grid)
     v2, _ = r1_branch_voltages(q, grid)
     gain_term = (gate_voltage(q, grid) - 0.5 * q["vdd_v"]) / q["amp_dc_gain"]
     v1_needed = np.maximum(v2 - gain_term - q["amp_offset_v"], 2.0 * q["amp_vcm_min_v"] - v2)
@@ -189,13 +189,13 @@ def injection_needed(p: Mapping[str, Any], i_target) -> np.ndarray:
     return np.max(np.maximum(node1 - grid, 0.0), axis=1)
 
 
-def pulldown_needed(p: Mapping[str, Any], i_target) -> np.ndarray:
+def pulldown_needed(p: Mapping[str, Any], i_target, grid: np.ndarray = _I_GRID) -> np.ndarray:
     """Largest current with which the amplifier holds the gate up at any core current below the target:
     its full tail when the input pair is off, otherwise its drive when the input is of the wrong sign.
     Per sample (B,)."""
     q = batched(p)
     target = np.broadcast_to(i_target, (_batch_size(p),))
-    grid = _escape_grid(q, target)
+    grid = _escape_grid(target, grid)
     alive = amplifier_alive(q, grid)
     ib = amplifier_bias(q, grid)
     wrong = np.clip(-np.tanh(loop_drive(q, grid) / _input_linear_range(q, target[:, None])), 0.0, None)
@@ -222,7 +222,7 @@ _ESCAPE_FLOOR_A = 1e-16  # a need below this is reported as this (nothing measur
 _ESCAPE_CEILING_A = 1e-2  # no startup circuit of this core injects more: beyond it, none can
 
 
-def startup_needed(p: Mapping[str, Any], i_op) -> np.ndarray:
+def startup_needed(p: Mapping[str, Any], i_op, grid: np.ndarray = _I_GRID) -> np.ndarray:
     """The startup current the design's kind needs to escape the zero state, per sample (B,).
 
     Injection and kick kinds inject into node 1: :func:`injection_needed` up to 0.9·i_op. The pull-down
@@ -232,7 +232,7 @@ def startup_needed(p: Mapping[str, Any], i_op) -> np.ndarray:
     i_op = np.atleast_1d(np.asarray(i_op, dtype=float))
     target = np.where(np.isnan(i_op), 1e-6, 0.9 * i_op)  # any finite target; the result is NaN there
     fn = pulldown_needed if p["startup_kind"] == "pulldown" else injection_needed
-    need = np.maximum(fn(p, target), _ESCAPE_FLOOR_A)
+    need = np.maximum(fn(p, target, grid), _ESCAPE_FLOOR_A)
     return np.where(np.isnan(i_op), np.nan, np.where(need > _ESCAPE_CEILING_A, np.inf, need))
 
 
@@ -262,8 +262,10 @@ def startup_margin(p: Mapping[str, Any]) -> np.ndarray:
     """ln(offered / needed startup current) per sample (B,): negative where the DC analysis says the part
     cannot leave the zero state; NaN without a wanted point. ``p``: resolved parameters with ``ramp_s``,
     per-sample values as 1-D arrays. A cheap guide to where parts stick, not the verdict (the
-    transient decides: a weak current may escape too slowly for the record)."""
-    need = startup_needed(p, operating_points(p))
+    transient decides: a weak current may escape too slowly for the record). Computed on coarser
+    current grids than :func:`dc_analysis` (10 and 5 points per decade; within about 1 % of it): it
+    is called for thousands of parameter points."""
+    need = startup_needed(p, operating_points(p, _I_GRID[::8], iterations=24), _I_GRID[::4])
     offered = np.broadcast_to(startup_offered(p), need.shape)
     return np.log(np.maximum(offered, _ESCAPE_FLOOR_A) / need)
 

@@ -81,7 +81,7 @@ class MonteCarloResult:
 
     samples: pd.DataFrame
     seed: int
-    failures: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=_FAILURE_COLUMNS))
+    failures: pd.DataFrame = field(default_factory=lambda: no_failures())
 
     def summary(self) -> pd.DataFrame:
         keys = ["ramp_s", "temperature_c"]
@@ -96,6 +96,11 @@ class MonteCarloResult:
 
 
 _FAILURE_COLUMNS = ["ramp_s", "temperature_c", "sample", "error", *VARIED]
+
+
+def no_failures() -> pd.DataFrame:
+    """An empty failures table (the columns of ``MonteCarloResult.failures``)."""
+    return pd.DataFrame(columns=_FAILURE_COLUMNS)
 
 
 def summarise(g: pd.DataFrame, failures: pd.DataFrame | None = None) -> dict:
@@ -197,7 +202,7 @@ def _run_chunk(item) -> tuple[pd.DataFrame, pd.DataFrame]:
 def _failure_rows(ramp_s, temperature_c, sample_ids, values, bad: list[tuple[int, str]]) -> pd.DataFrame:
     rows = [{"ramp_s": float(ramp_s), "temperature_c": float(temperature_c), "sample": int(sample_ids[k]),
              "error": message, **{name: float(v[k]) for name, v in values.items()}} for k, message in bad]
-    return pd.DataFrame(rows, columns=_FAILURE_COLUMNS)
+    return pd.DataFrame(rows, columns=_FAILURE_COLUMNS) if rows else no_failures()
 
 
 def run_samples(design, z: np.ndarray, *, conditions: Sequence[tuple[float, float]], sample_ids=None,
