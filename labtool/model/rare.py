@@ -73,6 +73,7 @@ class RareStuckResult:
     regions: tuple[dict, ...]  # every stuck region kept: beta, found_by, mixture share, its point
     warnings: tuple[str, ...]
     n_failed: int  # transients that could not be simulated
+    parameters: tuple[str, ...]  # the varied parameters searched (sigma > 0)
     failures: pd.DataFrame = field(repr=False, compare=False)
     samples: pd.DataFrame = field(repr=False, compare=False)  # the importance samples: draws, stuck, weight
 
@@ -163,22 +164,29 @@ class _StuckModel:
 def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4000, seed: int = 1,
                       limits: Limits | None = None, scheduler: Scheduler | None = None, explore: int = 256,
                       rel_halfwidth: float | None = 0.1, round_size: int = 500,
-                      min_samples: int = 1000) -> RareStuckResult:
+                      min_samples: int = 1000, near: "RareStuckResult | None" = None) -> RareStuckResult:
     """P(stuck at zero) of ``design`` at one condition, by mixture importance sampling (see the module).
 
     ``n``: most importance samples (transients); sampling stops earlier once the 95 % interval's
     half-width is within ``rel_halfwidth`` of the estimate (after ``min_samples``; None: always ``n``).
     ``explore``: scaled-sigma transients that look for stuck regions the DC guide does not see. The
-    same ``seed`` gives the same result, and the same base draws at every condition."""
+    same ``seed`` gives the same result, and the same base draws at every condition. ``near``: the
+    result of a closely related design at this condition (a calibration's estimate, for the ends of
+    its parameter intervals): its stuck points are re-verified and refined instead of searched anew."""
     if n < 2:
         raise ModelError(f"rare-event estimate needs n ≥ 2 importance samples (got {n})")
     model = _StuckModel(design, ramp_s, temperature_c, limits or Limits(), scheduler)
     d = len(model.active)
     if d == 0:
         raise ModelError("rare-event estimate: the design varies no parameter (every sigma is zero)")
+    start = None
+    if near is not None:
+        if near.parameters != tuple(model.active):
+            raise ModelError("rare-event estimate: the related result varies other parameters")
+        start = [np.array([_sigma_at(reg, name) for name in model.active]) for reg in near.regions]
     est = reliability.estimate(model.classify, d, seed=seed, n=n, guide=model.guide, explore=explore,
                                defensive=DEFENSIVE, rel_halfwidth=rel_halfwidth, round_size=round_size,
-                               min_samples=min_samples)
+                               min_samples=min_samples, near=start)
     s = est.samples
     z = model.draws(s["u"])
     samples = pd.DataFrame({f"z_{name}": z[:, VARIED.index(name)] for name in model.active})
@@ -195,5 +203,11 @@ def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4
         p_stuck_ci95=est.ci95, se=est.se, n_transients=est.n_evaluations, n_samples=est.n_samples,
         n_stuck=est.n_failing, beta=est.beta, p_form=float(special.ndtr(-est.beta)) if est.beta is not None else None,
         ess=est.ess, mpp=model.coordinates(est.regions[0].point) if est.regions else (), regions=regions,
-        warnings=est.warnings, n_failed=len(failures), failures=failures, samples=samples)
+        warnings=est.warnings, n_failed=len(failures), parameters=tuple(model.active), failures=failures,
+        samples=samples)
 
+
+
+def _sigma_at(region: dict, name: str) -> float:
+    """The sigma of parameter ``name`` at a region's stuck point (as stored in ``regions``)."""
+    return next(c["sigma"] for c in region["mpp"] if c["parameter"] == name)

@@ -108,12 +108,12 @@ def distinct(points: list[np.ndarray], cos_same: float = SAME_REGION_COS) -> lis
 
 # -- the classifier's boundary -------------------------------------------------------------------
 def boundary_radii(classify: _Counted, directions: np.ndarray, guess: np.ndarray | None = None, *,
-                   r_max: float = R_MAX, steps: int = 3, fan: int = 3) -> np.ndarray:
+                   r_max: float = R_MAX, steps: int = 2, fan: int = 7) -> np.ndarray:
     """Radius of the first failing point along each unit direction; inf where nothing fails up to
     ``r_max``. A first call probes 0.7·guess, guess and r_max; then ``steps`` rounds split every open
     bracket by ``fan`` probes (1: bisection, the fewest evaluations; more: fewer rounds, which is what
     costs when each call is a batch), all rays in one batch per round. Returns the failing end of each
-    bracket (3 rounds of 3 probes narrow it 64-fold)."""
+    bracket (2 rounds of 7 probes narrow it 64-fold)."""
     k = len(directions)
     guess = np.full(k, 0.5 * r_max) if guess is None else np.clip(np.asarray(guess, float), 0.3, r_max)
     near = 0.7 * guess
@@ -158,7 +158,7 @@ def _plane_nearest_point(points: np.ndarray) -> tuple[np.ndarray, float] | None:
 
 
 def refine(classify: _Counted, points: list[np.ndarray], *, rounds: int = 2, spread: float = 0.25,
-           steps: int = 3, fan: int = 3, tol: float = 0.02) -> list[np.ndarray]:
+           steps: int = 2, fan: int = 7, tol: float = 0.02) -> list[np.ndarray]:
     """Move boundary points towards the classifier's nearest failure points: boundary radii on rays
     tilted by ±``spread`` rad along every tangent direction, a plane fitted through those boundary
     points (a response-surface step), and that plane's nearest point, kept if its own ray fails
@@ -190,7 +190,7 @@ def refine(classify: _Counted, points: list[np.ndarray], *, rounds: int = 2, spr
             break
         keys = list(planes)
         r_new = boundary_radii(classify, np.array([planes[k][0] for k in keys]), np.array([planes[k][1] for k in keys]),
-                               steps=steps + 1, fan=fan)
+                               steps=steps, fan=fan)
         still = []
         for k, r in zip(keys, r_new):
             gain = float(np.linalg.norm(points[k]) - r)
@@ -226,7 +226,7 @@ def start_directions(guide: Guide | None, d: int, rng: np.random.Generator, rand
 
 
 def nearest_points(classify: _Counted, directions: np.ndarray, guess: np.ndarray | None = None, *,
-                   steps: int = 3, fan: int = 3, rounds: int = 2, keep: int = 3) -> list[np.ndarray]:
+                   steps: int = 2, fan: int = 7, rounds: int = 2, keep: int = 3) -> list[np.ndarray]:
     """Boundary points along ``directions``, the ``keep`` nearest distinct ones refined (:func:`refine`),
     nearest first."""
     radii = boundary_radii(classify, directions, guess, steps=steps, fan=fan)
@@ -366,11 +366,18 @@ def summarise_samples(s: dict, defensive_share: float) -> tuple[float, float, tu
 
 def estimate(classify: Classifier, d: int, *, seed: int, n: int = 4000, guide: Guide | None = None,
              explore: int = 256, defensive: float = 0.1, rel_halfwidth: float | None = 0.1,
-             round_size: int = 500, min_samples: int = 1000) -> TailEstimate:
+             round_size: int = 500, min_samples: int = 1000, near: list[np.ndarray] | None = None) -> TailEstimate:
     """The failure probability of u ~ N(0, I_d): regions (:func:`find_regions`), then mixture importance
-    sampling of up to ``n`` points (:func:`importance_sample`). Reproducible by ``seed``."""
+    sampling of up to ``n`` points (:func:`importance_sample`). Reproducible by ``seed``.
+
+    ``near``: nearest failure points of a closely related problem (the same design with slightly other
+    parameters); the search then only re-verifies and refines them, without the guide's search and the
+    exploration (the guard against other regions was run for the related problem)."""
     counted = _Counted(classify)
-    regions = find_regions(counted, d, np.random.default_rng([seed, 2]), guide, explore=explore)
+    if near is not None:
+        regions = _verify(counted, [(_unit(p), float(np.linalg.norm(p)), "related estimate") for p in near])
+    else:
+        regions = find_regions(counted, d, np.random.default_rng([seed, 2]), guide, explore=explore)
     warnings = []
     if not regions:
         warnings.append("no failure region found within β ≤ 12 by the search: sampling the nominal density")
