@@ -29,10 +29,10 @@ from labtool.model.dc import startup_margin
 from labtool.model.design import resolve_params
 from labtool.model.montecarlo import CHUNK, VARIED, no_failures, run_samples, sampled_values, sigmas
 
-METHOD = ("mixture importance sampling around the most probable stuck point(s) with a 10 % defensive nominal "
-          "component; DC-guided multi-start search, scaled-sigma exploration; every sample a full transient "
-          "measured by the engine")
-DEFENSIVE = 0.1
+DEFENSIVE = 0.1  # share of the nominal density in the mixture
+METHOD = (f"mixture importance sampling around the most probable stuck point(s) with a {DEFENSIVE:.0%} defensive "
+          "nominal component; DC-guided multi-start search, scaled-sigma exploration; every sample a full "
+          "transient measured by the engine")
 
 # What each varied parameter is, in the words of the readable summary.
 LABELS = {"amp_offset_v": "offset", "is_dev_q1": "Q1 saturation current", "is_dev_q2": "Q2 saturation current",
@@ -162,14 +162,15 @@ class _StuckModel:
 
 
 def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4000, seed: int = 1,
-                      limits: Limits | None = None, scheduler: Scheduler | None = None, explore: int = 256,
+                      limits: Limits | None = None, scheduler: Scheduler | None = None, explore: int | None = None,
                       rel_halfwidth: float | None = 0.1, round_size: int = 500,
                       min_samples: int = 1000, near: "RareStuckResult | None" = None) -> RareStuckResult:
     """P(stuck at zero) of ``design`` at one condition, by mixture importance sampling (see the module).
 
     ``n``: most importance samples (transients); sampling stops earlier once the 95 % interval's
     half-width is within ``rel_halfwidth`` of the estimate (after ``min_samples``; None: always ``n``).
-    ``explore``: scaled-sigma transients that look for stuck regions the DC guide does not see. The
+    ``explore``: scaled-sigma transients that look for stuck regions the DC guide does not see (default
+    n/8, at least 32, at most 256). The
     same ``seed`` gives the same result, and the same base draws at every condition. ``near``: the
     result of a closely related design at this condition (a calibration's estimate, for the ends of
     its parameter intervals): its stuck points are re-verified and refined instead of searched anew."""
@@ -184,6 +185,7 @@ def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4
         if near.parameters != tuple(model.active):
             raise ModelError("rare-event estimate: the related result varies other parameters")
         start = [np.array([_sigma_at(reg, name) for name in model.active]) for reg in near.regions]
+    explore = min(256, max(32, n // 8)) if explore is None else explore
     est = reliability.estimate(model.classify, d, seed=seed, n=n, guide=model.guide, explore=explore,
                                defensive=DEFENSIVE, rel_halfwidth=rel_halfwidth, round_size=round_size,
                                min_samples=min_samples, near=start)

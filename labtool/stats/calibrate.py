@@ -312,7 +312,7 @@ def _predict(design_at: Callable[[np.ndarray], object], points: list[np.ndarray]
     out = []
     for r, t in setups:
         runs = [stuck_probability(design_at(points[0]), ramp_s=r, temperature_c=t, n=n, seed=seed, limits=limits,
-                                  scheduler=scheduler, explore=min(256, max(32, n // 8)))]
+                                  scheduler=scheduler)]
         runs += [stuck_probability(design_at(u), ramp_s=r, temperature_c=t, n=n, seed=seed, limits=limits,
                                    scheduler=scheduler, near=runs[0]) for u in points[1:]]
         first = runs[0]

@@ -129,8 +129,7 @@ def rare_json(design, ramp: float, temp: float, n: int, seed: int, scheduler) ->
     delay figures do not apply to importance samples (null)."""
     from labtool.model.rare import stuck_probability
 
-    r = stuck_probability(design, ramp_s=ramp, temperature_c=temp, n=n, seed=seed, scheduler=scheduler,
-                          explore=min(256, max(32, n // 8)))
+    r = stuck_probability(design, ramp_s=ramp, temperature_c=temp, n=n, seed=seed, scheduler=scheduler)
     return {**r.to_json_dict(), "cause": r.cause(), **dict.fromkeys(
         ("delay_median_s", "delay_p05_s", "delay_p95_s", "delay_mean_s", "delay_std_s", "verdicts"))}
 
