@@ -170,8 +170,8 @@ def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4
     ``n``: most importance samples (transients); sampling stops earlier once the 95 % interval's
     half-width is within ``rel_halfwidth`` of the estimate (after ``min_samples``; None: always ``n``).
     ``explore``: scaled-sigma transients that look for stuck regions the DC guide does not see (default
-    n/8, at least 32, at most 256). The
-    same ``seed`` gives the same result, and the same base draws at every condition. ``near``: the
+    n/8, at least 32, at most 256). The same ``seed`` gives the same result, and the same base draws
+    at every condition. ``near``: the
     result of a closely related design at this condition (a calibration's estimate, for the ends of
     its parameter intervals): its stuck points are re-verified and refined instead of searched anew."""
     if n < 2:
@@ -207,7 +207,6 @@ def stuck_probability(design, *, ramp_s: float, temperature_c: float, n: int = 4
         ess=est.ess, mpp=model.coordinates(est.regions[0].point) if est.regions else (), regions=regions,
         warnings=est.warnings, n_failed=len(failures), parameters=tuple(model.active), failures=failures,
         samples=samples)
-
 
 
 def _sigma_at(region: dict, name: str) -> float:
