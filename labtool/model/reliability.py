@@ -6,11 +6,13 @@ negative where it predicts failure) steers the search. Published methods, all ci
 
 - **Most probable failure point.** The reliability index β of Hasofer & Lind (J. Eng. Mech. Div.
   ASCE 100, 1974) is the distance from the origin to the nearest failure point u*; the first-order
-  estimate is Φ(−β). u* of the guide is found by the Hasofer–Lind–Rackwitz–Fiessler iteration
-  (Rackwitz & Fiessler, Computers & Structures 9, 1978) with a merit-function step rule, from several
-  starts. The classifier then decides: along each candidate direction the failure boundary is found
-  by bisection of the radius, and the direction is improved by fitting a plane through boundary
-  points on rays around it (a response-surface step) and taking that plane's nearest point.
+  estimate is Φ(−β). The search is a constrained nearest-point search that needs only the sign of
+  failure (a transient's verdict has no gradient, and the guide's margin may jump): along each start
+  direction the boundary radius is found by subdividing a bracket, and a boundary point is moved to
+  the local nearest point by response-surface steps (Bucher & Bourgund, Structural Safety 7, 1990):
+  a plane fitted through boundary points on rays tilted around it, and that plane's nearest point.
+  The guide's boundary is searched first from many directions (cheap); the classifier then finds its
+  own boundary along the guide's directions and refines it the same way.
 - **A second failure region.** A first-order search finds one local nearest point. Guards: the
   guide's search runs from several starts; an exploration stage classifies points drawn with
   scaled sigma (u ~ N(0, s²·I)) and turns every failing point that lies away from the known regions
@@ -238,7 +240,7 @@ def nearest_points(classify: _Counted, directions: np.ndarray, guess: np.ndarray
 def find_regions(classify: _Counted, d: int, rng: np.random.Generator, guide: Guide | None = None, *,
                  random_starts: int = 4, explore: int = 256, beta_window: float = 1.0) -> list[FailureRegion]:
     """Failure regions nearest first. The guide's nearest points from many start directions (cheap:
-    fine bisection, several refinement rounds), verified and refined with the classifier; then an
+    fine subdivision, several refinement rounds), verified and refined with the classifier; then an
     exploration of ``explore`` points with scaled sigma for regions the guide does not see. Regions
     farther than β_min + ``beta_window`` are dropped (at ppm levels their first-order share is below
     about 1 % of the nearest one's)."""
@@ -247,7 +249,7 @@ def find_regions(classify: _Counted, d: int, rng: np.random.Generator, guide: Gu
     candidates: list[tuple[np.ndarray, float, str]] = []  # (direction, radius guess, found_by)
     if guide is not None:
         cheap = _Counted(_guide_classifier(guide))
-        for p in nearest_points(cheap, starts, steps=4, fan=15, rounds=3):  # 16⁴: radii to ~1e-4 of 8 σ
+        for p in nearest_points(cheap, starts, steps=4, fan=15, rounds=3):  # brackets narrowed 16⁴-fold
             candidates.append((_unit(p), float(np.linalg.norm(p)), "guide"))
     regions = _verify(classify, candidates)
     if explore:
