@@ -17,11 +17,11 @@ import numpy as np
 from scipy.integrate import solve_ivp
 
 from labtool.execute import Scheduler
-from labtool.measure import Limits
+from labtool.measure import Limits, measure_outputs
 from labtool.model import load_design, monte_carlo
 from labtool.model.circuit import OUT, linear_ramp, make_circuit
 from labtool.model.design import resolve_params
-from labtool.model.montecarlo import draws, measure_sample, sampled_values
+from labtool.model.montecarlo import draws, sampled_values
 from labtool.model.transient import default_stop
 
 DESIGN = Path(__file__).resolve().parents[1] / "sample_runs" / "design.toml"
@@ -54,7 +54,7 @@ def baseline(design, n: int, seed: int = 1, *, method: str = "BDF", rtol: float 
 
         sol = solve_ivp(rhs, (0.0, t_stop), np.zeros(6), method=method, t_eval=grid, rtol=rtol or design.rtol,
                         atol=atol or design.atol_v)
-        delays.append(measure_sample(grid, supply, sol.y[OUT], Limits())["delay_s"])
+        delays.append(measure_outputs(grid, supply, [sol.y[OUT]], Limits(), fit=False)[0].delay_s)
     return ((time.perf_counter() - start) / n, (time.process_time() - cpu) / n, np.array(delays, dtype=float))
 
 

@@ -11,7 +11,7 @@ from labtool.errors import MeasurementError
 from labtool.measure.fit import StepFit, fit_step, json_value
 from labtool.measure.levels import segment_level
 from labtool.measure.limits import Limits
-from labtool.measure.startup import TAIL_FRACTION, StartupMetrics, edge_instant, measure_startup
+from labtool.measure.startup import TAIL_FRACTION, StartupMetrics, edge_instant, measure_startup, supply_metrics
 from labtool.measure.verdict import decide
 
 MIN_SAMPLES = 32
@@ -82,15 +82,40 @@ def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits(), supply_cu
     """
     t, s, o = _checked(t_s, supply_v, output_v)
     m = measure_startup(t, s, o, limits, t_ref_s=t_ref_s if s is None else None)
-    fit = _fit(t, o, m)
+    return _result(t, o, m, limits, fit=True, supply_current_a=supply_current_a,
+                   delay_ref="supply" if s is not None else delay_ref)
+
+
+def measure_outputs(t_s, supply_v, outputs, limits: Limits = Limits(), *, fit: bool = True) -> list[StartupResult]:
+    """Measure many output records against one shared supply record (the samples of a Monte Carlo
+    condition): the supply's levels and reference instant are derived once. Each result equals
+    ``measure_arrays(t_s, supply_v, output)``; ``fit=False`` skips the step-model fit (ring_hz and
+    damping are then None). An output with non-finite samples is measured on its own."""
+    t, s, _ = _checked(t_s, supply_v, supply_v)
+    shared = t.size == np.size(t_s)  # no supply or time sample was dropped
+    part = supply_metrics(t, s, limits)
+    results = []
+    for output in outputs:
+        o = np.asarray(output, dtype=np.float64)
+        if not (shared and o.shape == t.shape and np.isfinite(o).all()):
+            t_o, s_o, o = _checked(t_s, supply_v, o)
+            results.append(_result(t_o, o, measure_startup(t_o, s_o, o, limits), limits, fit=fit))
+        else:
+            results.append(_result(t, o, measure_startup(t, s, o, limits, supply_part=part), limits, fit=fit))
+    return results
+
+
+def _result(t, o, m: StartupMetrics, limits: Limits, *, fit: bool, supply_current_a=None,
+            delay_ref: str = "supply") -> StartupResult:
+    step = _fit(t, o, m) if fit else None
     verdict, evidence = decide(m, limits)
     return StartupResult(
         verdict=verdict, t_supply_s=m.t_supply_s, delay_s=m.delay_s, rise_s=m.rise_s, settle_s=m.settle_s,
-        overshoot_pct=m.overshoot_pct, ring_hz=fit.ring_hz if fit else None, damping=fit.damping if fit else None,
-        vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v if m.supply is not None else None,
+        overshoot_pct=m.overshoot_pct, ring_hz=step.ring_hz if step else None,
+        damping=step.damping if step else None, vout_final_v=m.output.final_v,
+        vsupply_final_v=m.supply.final_v if m.supply is not None else None,
         ramp_v_per_s=m.ramp_v_per_s, supply_at_start_v=m.supply_at_start_v,
-        isupply_final_a=_final_level(supply_current_a), delay_ref="supply" if s is not None else delay_ref,
-        evidence=evidence, fit=fit)
+        isupply_final_a=_final_level(supply_current_a), delay_ref=delay_ref, evidence=evidence, fit=step)
 
 
 def _final_level(values) -> float | None:

@@ -111,7 +111,20 @@ def signal_levels(v: np.ndarray) -> SignalLevels:
                         noise_v=noise, step_v=step)
 
 
-def _supply_metrics(t, supply, levels: SignalLevels, limits: Limits):
+@dataclass(frozen=True)
+class SupplyMetrics:
+    """What the supply record alone gives: its levels, reference instant and ramp rate."""
+
+    levels: SignalLevels
+    t_supply_s: float | None
+    ref_v: float
+    ramp_v_per_s: float | None
+    peak_v: float
+
+
+def supply_metrics(t: np.ndarray, supply: np.ndarray, limits: Limits) -> SupplyMetrics:
+    """The supply's part of :func:`measure_startup`; records that share one supply share this."""
+    levels = signal_levels(supply)
     kind, value = limits.supply_reference()
     sl = StateLevels(levels.initial_v, levels.final_v)
     ref_v = sl.reference(value) if kind == "fraction" else value
@@ -122,7 +135,7 @@ def _supply_metrics(t, supply, levels: SignalLevels, limits: Limits):
     t10 = first_crossing(t, supply, sl.reference(0.1), h)
     t90 = first_crossing(t, supply, sl.reference(0.9), h)
     ramp = 0.8 * sl.amplitude_v / (t90 - t10) if t10 is not None and t90 is not None and t90 > t10 else None
-    return t_supply, ref_v, ramp
+    return SupplyMetrics(levels, t_supply, ref_v, ramp, sustained_max(supply))
 
 
 def _zero_threshold(out: SignalLevels, supply_final_v: float, limits: Limits) -> float:
@@ -136,19 +149,20 @@ def _index(t: np.ndarray, instant: float) -> int:
 
 
 def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray, limits: Limits,
-                    t_ref_s: float | None = None) -> StartupMetrics:
+                    t_ref_s: float | None = None, supply_part: SupplyMetrics | None = None) -> StartupMetrics:
     """All startup metrics of one record (arrays already checked: same length, finite, t increasing).
 
     Without a supply record (``supply`` None) the delay and settling count from ``t_ref_s`` (the trigger
     instant, a given supply-valid instant or the enable edge), reported as ``t_supply_s``; the supply
-    fields are None.
+    fields are None. ``supply_part``: :func:`supply_metrics` of this supply record, when already known.
     """
     out = signal_levels(output)
     if supply is None:
+        sp = None
         sup, t_supply, supply_ref_v, ramp = None, t_ref_s, None, None
     else:
-        sup = signal_levels(supply)
-        t_supply, supply_ref_v, ramp = _supply_metrics(t, supply, sup, limits)
+        sp = supply_metrics(t, supply, limits) if supply_part is None else supply_part
+        sup, t_supply, supply_ref_v, ramp = sp.levels, sp.t_supply_s, sp.ref_v, sp.ramp_v_per_s
     zero_v = _zero_threshold(out, sup.final_v if sup is not None else 0.0, limits)
     peak_v = sustained_max(output)
     left_zero = peak_v > zero_v
@@ -158,7 +172,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
     n = t.size
     tail_start_s = float(t[n - max(MIN_SEGMENT, int(n * TAIL_FRACTION))])
     common = dict(supply=sup, output=out, t_supply_s=t_supply, supply_ref_v=supply_ref_v, ramp_v_per_s=ramp,
-                  supply_peak_v=sustained_max(supply) if supply is not None else None, zero_threshold_v=zero_v,
+                  supply_peak_v=sp.peak_v if sp is not None else None, zero_threshold_v=zero_v,
                   output_peak_v=peak_v,
                   left_zero=left_zero, final_is_zero=final_is_zero, tail_start_s=tail_start_s,
                   record_end_s=float(t[-1]))

@@ -58,12 +58,16 @@ class DcResult:
 
 def core_voltages(p: Mapping[str, Any], i_core, i_inject=0.0):
     """V1, V2, V3 with core current ``i_core`` in both branches and ``i_inject`` added into node 1."""
-    ut = p["ut_v"]
     is1 = p["is_a"] * (1.0 + p["is_dev_q1"])
+    v1 = physics.node_voltage(np.asarray(i_core) + i_inject, is1, p["leak_q1_a"], p["ut_v"])
+    return (v1, *r1_branch_voltages(p, i_core))
+
+
+def r1_branch_voltages(p: Mapping[str, Any], i_core):
+    """V2 (top of R1) and V3 (diode Q2) with core current ``i_core``."""
     is2 = p["is_a"] * p["area_ratio"] * (1.0 + p["is_dev_q2"])
-    v1 = physics.node_voltage(np.asarray(i_core) + i_inject, is1, p["leak_q1_a"], ut)
-    v3 = physics.node_voltage(i_core, is2, p["leak_q2_a"], ut)
-    return v1, np.asarray(i_core) * p["r1_ohm"] + v3, v3
+    v3 = physics.node_voltage(i_core, is2, p["leak_q2_a"], p["ut_v"])
+    return np.asarray(i_core) * p["r1_ohm"] + v3, v3
 
 
 def gate_voltage(p: Mapping[str, Any], i_core):
@@ -100,32 +104,45 @@ def amplifier_bias(p: Mapping[str, Any], i_core):
     return p["amp_bias_min_a"] + p["amp_bias_ratio"] * np.asarray(i_core, dtype=float)
 
 
-def _bisect_log(fn, lo: float, hi: float, iterations: int = 80) -> float:
-    """Root of ``fn`` between ``lo`` and ``hi`` (fn(lo) and fn(hi) of opposite sign), in log current."""
+def _bisect_log(fn, lo, hi, iterations: int = 80):
+    """Root of ``fn`` between ``lo`` and ``hi`` (fn(lo) and fn(hi) of opposite sign), in log current.
+    Elementwise when ``lo`` and ``hi`` are arrays (one bracket per sample)."""
     a, b = np.log(lo), np.log(hi)
     fa = fn(lo) > 0
     for _ in range(iterations):
         m = 0.5 * (a + b)
-        if (fn(np.exp(m)) > 0) == fa:
-            a = m
-        else:
-            b = m
-    return float(np.exp(0.5 * (a + b)))
+        same = (fn(np.exp(m)) > 0) == fa
+        a, b = np.where(same, m, a), np.where(same, b, m)
+    root = np.exp(0.5 * (a + b))
+    return float(root) if np.ndim(root) == 0 else root
 
 
-def _last_down_crossing(values):
-    """Index i with values[i] > 0 ≥ values[i+1], the last one; None when there is none."""
-    idx = np.nonzero((values[:-1] > 0) & (values[1:] <= 0))[0]
-    return int(idx[-1]) if idx.size else None
+def batched(p: Mapping[str, Any]) -> dict[str, Any]:
+    """Parameters with per-sample values (1-D arrays, from ``resolve_params`` of Monte Carlo values) as
+    columns (B, 1), so that they broadcast against a grid of core currents (B, G)."""
+    return {k: (v[:, None] if isinstance(v, np.ndarray) and v.ndim == 1 else v) for k, v in p.items()}
+
+
+def _batch_size(p: Mapping[str, Any]) -> int:
+    sizes = {v.shape[0] for v in p.values() if isinstance(v, np.ndarray) and v.ndim >= 1}
+    return sizes.pop() if sizes else 1
+
+
+def operating_points(p: Mapping[str, Any], grid: np.ndarray = _I_GRID, iterations: int = 80) -> np.ndarray:
+    """The wanted current of every sample: the highest stable zero of vd(I) (vd falls through zero) on
+    ``grid``, refined by ``iterations`` bisections; NaN where there is none."""
+    q = batched(p)
+    vd = np.broadcast_to(loop_drive(q, grid), (_batch_size(p), grid.size))
+    down = (vd[:, :-1] > 0) & (vd[:, 1:] <= 0)
+    k = grid.size - 2 - np.argmax(down[:, ::-1], axis=1)  # the last down-crossing
+    root = np.atleast_1d(_bisect_log(lambda i: loop_drive(q, i[:, None])[:, 0], grid[k], grid[k + 1], iterations))
+    return np.where(down.any(axis=1), root, np.nan)
 
 
 def operating_point(p: Mapping[str, Any]) -> float | None:
     """The wanted current: the highest stable zero of vd(I) (vd falls through zero), or None."""
-    vd = loop_drive(p, _I_GRID)
-    k = _last_down_crossing(vd)
-    if k is None:
-        return None
-    return _bisect_log(lambda i: loop_drive(p, i), _I_GRID[k], _I_GRID[k + 1])
+    i_op = float(operating_points(p)[0])
+    return None if np.isnan(i_op) else i_op
 
 
 def switch_current(p: Mapping[str, Any]) -> float | None:
@@ -148,26 +165,41 @@ def feedback_map(p: Mapping[str, Any]) -> tuple[FeedbackSegment, ...]:
                  for a, b in zip(starts, ends))
 
 
-def _zero_and_up_to(i_target: float) -> np.ndarray:
-    """Core currents from the zero state itself (I = 0) up to ``i_target``, log-spaced from 1e-16 A."""
-    return np.concatenate([[0.0], np.logspace(-16, np.log10(i_target), 200)])
+def _escape_grid(i_target: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """Core currents from the zero state itself (I = 0) up to ``i_target`` (B,): the log ``grid`` from
+    1 fA and the target itself; grid points above a sample's target repeat its target (B, G + 2)."""
+    target = np.asarray(i_target, dtype=float)[:, None]
+    return np.concatenate([np.zeros_like(target), np.minimum(grid[None, :], target), target], axis=1)
 
 
-def escapes(p: Mapping[str, Any], i_inject: float, i_target: float) -> bool:
-    """With ``i_inject`` into node 1, is the amplifier alive and driving upward at every core current
-    below ``i_target``? (Then the zero state is no longer an equilibrium.)"""
-    grid = _zero_and_up_to(i_target)
-    return bool(np.all((loop_drive(p, grid, i_inject) > 0) & (amplifier_alive(p, grid, i_inject) > 0.5)))
+def injection_needed(p: Mapping[str, Any], i_target, grid: np.ndarray = _I_GRID) -> np.ndarray:
+    """Smallest current into node 1 for which, at every core current I below ``i_target``, the amplifier
+    is alive (input common mode (V1 + V2)/2 above its limit: a > ½) and drives upward (vd > 0), so the
+    zero state is no longer an equilibrium. Closed form per grid current: V1 must exceed
+    max(V2 − gain term − Vos, 2·Vcm,min − V2), and node 1 carries IS·(e^{V1/VT} − 1) + IL·tanh(V1/VT)
+    at that V1. Per sample (B,); ``p`` as from :func:`batched` or scalar."""
+    q = batched(p)
+    grid = _escape_grid(np.broadcast_to(i_target, (_batch_size(p),)), grid)
+    v2, _ = r1_branch_voltages(q, grid)
+    gain_term = (gate_voltage(q, grid) - 0.5 * q["vdd_v"]) / q["amp_dc_gain"]
+    v1_needed = np.maximum(v2 - gain_term - q["amp_offset_v"], 2.0 * q["amp_vcm_min_v"] - v2)
+    ut = q["ut_v"]
+    node1 = (physics.diode_current(v1_needed, q["is_a"] * (1.0 + q["is_dev_q1"]), ut)
+             + physics.leakage_current(v1_needed, q["leak_q1_a"], ut))
+    return np.max(np.maximum(node1 - grid, 0.0), axis=1)
 
 
-def pulldown_needed(p: Mapping[str, Any], i_target: float) -> float:
+def pulldown_needed(p: Mapping[str, Any], i_target, grid: np.ndarray = _I_GRID) -> np.ndarray:
     """Largest current with which the amplifier holds the gate up at any core current below the target:
-    its full tail when the input pair is off, otherwise its drive when the input is of the wrong sign."""
-    grid = _zero_and_up_to(i_target)
-    alive = amplifier_alive(p, grid)
-    ib = amplifier_bias(p, grid)
-    wrong = np.clip(-np.tanh(loop_drive(p, grid) / _input_linear_range(p, i_target)), 0.0, None)
-    return float(np.max(ib * ((1.0 - alive) + alive * wrong)))
+    its full tail when the input pair is off, otherwise its drive when the input is of the wrong sign.
+    Per sample (B,)."""
+    q = batched(p)
+    target = np.broadcast_to(i_target, (_batch_size(p),))
+    grid = _escape_grid(target, grid)
+    alive = amplifier_alive(q, grid)
+    ib = amplifier_bias(q, grid)
+    wrong = np.clip(-np.tanh(loop_drive(q, grid) / _input_linear_range(q, target[:, None])), 0.0, None)
+    return np.max(ib * ((1.0 - alive) + alive * wrong), axis=1)
 
 
 def _input_linear_range(p: Mapping[str, Any], i_op: float) -> float:
@@ -186,31 +218,56 @@ def ideal_ptat_current(p: Mapping[str, Any]):
     return p["ut_v"] * np.log(p["area_ratio"]) / p["r1_ohm"]
 
 
-def minimum_startup_current(p: Mapping[str, Any], i_op: float | None) -> float | None:
-    """Smallest startup current of the design's kind that escapes the zero state (None: none can).
+_ESCAPE_FLOOR_A = 1e-16  # a need below this is reported as this (nothing measurable is needed)
+_ESCAPE_CEILING_A = 1e-2  # no startup circuit of this core injects more: beyond it, none can
 
-    Injection and kick kinds inject into node 1: the smallest injection for which :func:`escapes`
-    holds up to 0.9·i_op (bisection in log current). The pull-down must beat the amplifier's hold on the
-    gate (:func:`pulldown_needed`). The DC criterion ignores how slowly a starved amplifier moves;
-    the transient shows that.
-    """
+
+def startup_needed(p: Mapping[str, Any], i_op, grid: np.ndarray = _I_GRID) -> np.ndarray:
+    """The startup current the design's kind needs to escape the zero state, per sample (B,).
+
+    Injection and kick kinds inject into node 1: :func:`injection_needed` up to 0.9·i_op. The pull-down
+    must beat the amplifier's hold on the gate (:func:`pulldown_needed`). NaN without a wanted point,
+    inf where no current up to 10 mA escapes. The DC criterion ignores how slowly a starved amplifier
+    moves; the transient shows that."""
+    i_op = np.atleast_1d(np.asarray(i_op, dtype=float))
+    target = np.where(np.isnan(i_op), 1e-6, 0.9 * i_op)  # any finite target; the result is NaN there
+    fn = pulldown_needed if p["startup_kind"] == "pulldown" else injection_needed
+    need = np.maximum(fn(p, target, grid), _ESCAPE_FLOOR_A)
+    return np.where(np.isnan(i_op), np.nan, np.where(need > _ESCAPE_CEILING_A, np.inf, need))
+
+
+def minimum_startup_current(p: Mapping[str, Any], i_op: float | None) -> float | None:
+    """Smallest startup current of the design's kind that escapes the zero state (None: none can)."""
     if i_op is None:
         return None
-    target = 0.9 * i_op
-    if p["startup_kind"] == "pulldown":
-        return pulldown_needed(p, target)
-    lo, hi = 1e-16, 1e-2
-    if escapes(p, lo, target):
-        return lo
-    if not escapes(p, hi, target):
-        return None
-    for _ in range(40):  # brackets 14 decades; 40 halvings in log leave < 1e-10 relative
-        mid = np.sqrt(lo * hi)
-        if escapes(p, mid, target):
-            hi = mid
-        else:
-            lo = mid
-    return float(hi)
+    need = float(startup_needed(p, i_op)[0])
+    return need if np.isfinite(need) else None
+
+
+def startup_offered(p: Mapping[str, Any]):
+    """The current the startup circuit offers (per sample when ``p`` has arrays): the injection or
+    pull-down ``i_start_a``; a kick C·dV/dt while it lasts (the supply ramp ``ramp_s``, or the enable
+    edge); zero without a startup circuit."""
+    kind = p["startup_kind"]
+    if kind in ("inject", "pulldown"):
+        return p["i_start_a"]
+    if kind == "kick_supply":
+        return p["c_kick_f"] * p["vdd_v"] / p["ramp_s"]
+    if kind == "kick_enable":
+        return p["c_kick_f"] * p["vdd_v"] / p["enable_edge_s"]
+    return 0.0 * p["i_start_a"]
+
+
+def startup_margin(p: Mapping[str, Any]) -> np.ndarray:
+    """ln(offered / needed startup current) per sample (B,): negative where the DC analysis says the part
+    cannot leave the zero state; NaN without a wanted point. ``p``: resolved parameters with ``ramp_s``,
+    per-sample values as 1-D arrays. A cheap guide to where parts stick, not the verdict (the
+    transient decides: a weak current may escape too slowly for the record). Computed on coarser
+    current grids than :func:`dc_analysis` (10 and 5 points per decade; within about 1 % of it): it
+    is called for thousands of parameter points."""
+    need = startup_needed(p, operating_points(p, _I_GRID[::8], iterations=24), _I_GRID[::4])
+    offered = np.broadcast_to(startup_offered(p), need.shape)
+    return np.log(np.maximum(offered, _ESCAPE_FLOOR_A) / need)
 
 
 def dc_analysis(design, temperature_c: float | None = None) -> DcResult:

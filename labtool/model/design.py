@@ -121,6 +121,8 @@ PARAMS: tuple[Param, ...] = (
     Param("sigma_r_rel", "montecarlo", 0.05, "resistor tolerance, R1 and R2 together (relative)", "nonneg"),
     Param("sigma_c_rel", "montecarlo", 0.05, "capacitance spread, all nodes together (relative)", "nonneg"),
     Param("sigma_i_start_rel", "montecarlo", 0.10, "startup current spread (relative)", "nonneg"),
+    Param("sigma_leak_ln", "montecarlo", 0.0, "leakage spread: standard deviation of ln(leakage), each node"
+          " independently (log-normal)", "nonneg"),
     # per-part deviations (zero for the nominal design; set by sample_population)
     Param("is_dev_q1", "variation", 0.0, "relative deviation of Q1's saturation current", "float"),
     Param("is_dev_q2", "variation", 0.0, "relative deviation of Q2's saturation current", "float"),

@@ -17,11 +17,13 @@ Method (simulated likelihood with common random numbers):
   too: the half-widths in ln θ are widened by √(1 + n_measured/n_simulated), the usual variance factor
   1 + 1/S of simulation estimators with S simulated draws per observation (D. McFadden,
   Econometrica 57(5), 1989; Gouriéroux & Monfort, Simulation-Based Econometric Methods, 1996).
-- Prediction: Monte Carlo of the calibrated design at set-ups not measured; stuck ppm at the estimate
-  with the envelope of exact (Clopper–Pearson) 95 % intervals over the estimate and the ends of the
-  parameter intervals, which covers Monte Carlo and parameter uncertainty together (conservatively).
-With zero stuck among N simulated parts the upper end is about 3/N (the rule of three): the number
-of Monte Carlo samples, not the bench lot, limits how small a ppm the prediction can resolve.
+- Prediction (field ppm per corner): the calibrated design's stuck-at-zero probability at set-ups
+  not measured, by the rare-event estimator of labtool.model.rare (the most probable stuck point,
+  then mixture importance sampling; every sample a full transient measured by the engine), so ppm
+  and sub-ppm rates get an interval instead of "0 stuck in N". Stuck ppm at the estimate, with the
+  envelope of the 95 % intervals over the estimate and the ends of the parameter intervals, which
+  covers sampling and parameter uncertainty together (conservatively). The same seed at every
+  corner and parameter point: common random numbers.
 """
 
 from __future__ import annotations
@@ -36,7 +38,6 @@ from scipy import stats
 
 from labtool.errors import UsageError
 from labtool.execute import Scheduler
-from labtool.stats.intervals import exact_interval
 from labtool.stats.predictions import model_conditions
 from labtool.stats.table import CAME_UP, STUCK, plain, require_columns
 
@@ -63,11 +64,14 @@ class ParameterEstimate:
 class StuckPrediction:
     ramp_s: float
     temperature_c: float
-    n_samples: int
-    n_stuck: int
+    n_samples: int  # importance samples at the estimate
+    n_stuck: int  # stuck among them (they are drawn around the stuck point: not a rate)
     stuck_ppm: float
     stuck_ppm_low: float
     stuck_ppm_high: float
+    beta: float | None = None  # reliability index of the nearest stuck region at the estimate
+    n_transients: int = 0  # transients over all parameter points, searches included
+    method: str = ""
 
 
 @dataclass(frozen=True)
@@ -299,19 +303,24 @@ def default_prediction_setups(design, measured: Sequence[tuple[float, float]]) -
     return [c for c in dict.fromkeys(corners) if (round(c[0], 12), round(c[1], 6)) not in seen]
 
 
-def _predict(simulate, points: list[np.ndarray], setups, n: int) -> tuple[StuckPrediction, ...]:
-    runs = [simulate(u, setups, n) for u in points]
+def _predict(design_at: Callable[[np.ndarray], object], points: list[np.ndarray], setups, n: int, *, seed: int,
+             scheduler: Scheduler | None, limits=None) -> tuple[StuckPrediction, ...]:
+    """Stuck ppm per set-up by importance sampling at every parameter point (estimate first): the
+    estimate's value and the envelope of all the points' 95 % intervals."""
+    from labtool.model.rare import stuck_probability
+
     out = []
     for r, t in setups:
-        counts = []
-        for samples in runs:
-            g = samples[(samples["ramp_s"] == r) & (samples["temperature_c"] == t)]
-            counts.append((int(g["stuck"].sum()), len(g)))
-        k, m = counts[0]
-        bounds = [exact_interval(ki, mi) for ki, mi in counts]
-        out.append(StuckPrediction(ramp_s=r, temperature_c=t, n_samples=m, n_stuck=k, stuck_ppm=1e6 * k / m,
-                                   stuck_ppm_low=1e6 * min(b[0] for b in bounds),
-                                   stuck_ppm_high=1e6 * max(b[1] for b in bounds)))
+        runs = [stuck_probability(design_at(points[0]), ramp_s=r, temperature_c=t, n=n, seed=seed, limits=limits,
+                                  scheduler=scheduler)]
+        runs += [stuck_probability(design_at(u), ramp_s=r, temperature_c=t, n=n, seed=seed, limits=limits,
+                                   scheduler=scheduler, near=runs[0]) for u in points[1:]]
+        first = runs[0]
+        out.append(StuckPrediction(
+            ramp_s=r, temperature_c=t, n_samples=first.n_samples, n_stuck=first.n_stuck, stuck_ppm=1e6 * first.p_stuck,
+            stuck_ppm_low=1e6 * min(x.p_stuck_ci95[0] for x in runs),
+            stuck_ppm_high=1e6 * max(x.p_stuck_ci95[1] for x in runs), beta=first.beta,
+            n_transients=sum(x.n_transients for x in runs), method=first.method))
     return tuple(out)
 
 
@@ -373,7 +382,8 @@ def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITA
                 v = u.copy()
                 v[i] = math.log(end)
                 points.append(v)
-    predictions = _predict(simulate, points, at, n_predict) if at else ()
+    design_at = lambda v: with_parameters(design, dict(zip(fit, np.exp(v))))  # noqa: E731
+    predictions = _predict(design_at, points, at, n_predict, seed=seed, scheduler=scheduler) if at else ()
     return CalibrationResult(parameters=tuple(params), log_likelihood=-obj(u), log_likelihood_initial=-f_initial,
                              n_evaluations=len(obj.cache), n_captures=sum(d.n for d in data.values()),
                              setups=tuple(setups), samples_per_setup=n, seed=seed, predictions=predictions,

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from labtool.model import monte_carlo, sample_population
-from labtool.model.montecarlo import VARIED, draws
+from labtool.model.montecarlo import VARIED, draws, run_samples, sampled_values
 
 
 def _median_with_stuck_as_never(samples):
@@ -65,3 +65,32 @@ def test_full_measurement_agrees_with_the_fast_path(demo):
     assert list(fast["verdict"]) == list(full["verdict"])
     assert np.array_equal(fast["delay_s"].to_numpy(), full["delay_s"].to_numpy())
     assert "ring_hz" in full.columns and "damping" in full.columns
+
+
+def test_a_sample_that_cannot_be_simulated_is_recorded_and_the_rest_go_on(demo):
+    # Fault injection: sample 5's offset is not a number, so its node equations cannot be integrated.
+    # It is listed with its parameters and the error; every other sample is as in a clean run (a
+    # sample's result does not depend on its batch).
+    z = draws(8, 3)
+    clean = run_samples(demo, z, conditions=[(10e-6, 27.0)]).samples
+    z[5, 0] = np.nan
+    res = run_samples(demo, z, conditions=[(10e-6, 27.0)], chunk=8)
+    assert list(res.samples["sample"]) == [0, 1, 2, 3, 4, 6, 7]
+    assert np.array_equal(res.samples["delay_s"].to_numpy(), clean.drop(index=5)["delay_s"].to_numpy())
+    (bad,) = res.failures.to_dict(orient="records")
+    assert bad["sample"] == 5 and "integration failed" in bad["error"] and np.isnan(bad["amp_offset_v"])
+    assert bad["i_start_a"] == pytest.approx(clean.loc[5, "i_start_a"])
+    row = res.summary().iloc[0]
+    assert row["n"] == 7 and row["n_failed"] == 1 and row["p_stuck"] == 0.0
+
+
+def test_leakage_spread_is_log_normal_and_leaves_the_other_draws_alone(demo):
+    # Adding the leakage columns (a second stream of the seed) left the first seven draws unchanged.
+    import numpy.random as npr
+
+    assert np.array_equal(draws(5, 2)[:, :7], npr.default_rng(2).standard_normal((5, 7)))
+    d = demo.replace(sigma_leak_ln=0.5)
+    values = sampled_values(d, draws(4000, 2))
+    logs = np.log(values["leak_q1_a"] / demo.leak_q1_a)
+    assert logs.std() == pytest.approx(0.5, rel=0.05) and abs(logs.mean()) < 0.03
+    assert np.array_equal(sampled_values(demo, draws(10, 2))["leak_q2_a"], np.full(10, demo.leak_q2_a))

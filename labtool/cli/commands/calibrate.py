@@ -28,8 +28,9 @@ def register(sub) -> None:
                         "corners of the design's ramp_times_s × temperatures_c)")
     add_monte_carlo_options(p, samples=60, samples_help="Monte Carlo parts per measured set-up and likelihood "
                                                          "evaluation")
-    p.add_argument("--predict-samples", type=int, default=400, metavar="N",
-                   help="Monte Carlo parts per predicted set-up (default 400)")
+    p.add_argument("--predict-samples", type=int, default=1000, metavar="N",
+                   help="most importance samples (transients) per predicted set-up and parameter point, for the "
+                        "stuck ppm (default 1000)")
     p.add_argument("--json", action="store_true", help="the result as one JSON object")
     p.set_defaults(handler=run)
 
@@ -47,8 +48,8 @@ def parse_setup(text: str) -> tuple[float, float]:
 def run(args) -> int:
     from labtool.model import load_design
 
-    if args.samples < 5 or args.predict_samples < 1:
-        raise UsageError("--samples needs at least 5 parts and --predict-samples at least 1")
+    if args.samples < 5 or args.predict_samples < 2:
+        raise UsageError("--samples needs at least 5 parts and --predict-samples at least 2")
     design = load_design(args.model)
     at = [parse_setup(a) for a in args.at] if args.at else None
     result = calibrate(load_measurements(args.campaign), design, fit=parse_keys(args.fit, default=()),
@@ -69,10 +70,11 @@ def run(args) -> int:
     print(text_table([vars(p) for p in result.parameters],
                      ("name", "initial", "estimate", "ci95_low", "ci95_high", "interval")))
     if result.predictions:
-        print("\npredicted stuck at zero (calibrated model; range covers Monte Carlo and parameter uncertainty):")
+        print("\npredicted field stuck at zero per corner (calibrated model, importance sampling; the range covers "
+              "sampling and parameter uncertainty):")
         print(text_table([vars(p) for p in result.predictions],
-                         ("ramp_s", "temperature_c", "n_samples", "n_stuck", "stuck_ppm", "stuck_ppm_low",
-                          "stuck_ppm_high")))
+                         ("ramp_s", "temperature_c", "stuck_ppm", "stuck_ppm_low", "stuck_ppm_high", "beta",
+                          "n_transients")))
     print(f"\nwrote {out}")
     return 0
 

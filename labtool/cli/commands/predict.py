@@ -1,9 +1,11 @@
 """``labtool predict DESIGN``: what the behavioural startup model predicts for a design.
 
 DC picture (operating point, feedback polarity, offset and startup limits), the nominal transient
-measured like a capture, and optionally a Monte Carlo at one (ramp, temperature) condition. With
-``--json`` the last stdout line is one object with ``params``, ``dc``, ``transient`` and, with
-``--montecarlo``, ``montecarlo``. Behavioural model, not transistor-level sign-off.
+measured like a capture, and optionally a Monte Carlo at one (ramp, temperature) condition: plain
+(``--montecarlo N``) or, with ``--rare``, the stuck-at-zero probability by importance sampling at the
+ppm level with its interval (``--montecarlo N`` is then the most importance samples). With ``--json``
+the last stdout line is one object with ``params``, ``dc``, ``transient`` and ``montecarlo``.
+Behavioural model, not transistor-level sign-off.
 """
 
 from __future__ import annotations
@@ -22,7 +24,7 @@ from labtool.units import format_si, parse_quantity
 def register(sub) -> None:
     p = sub.add_parser("predict", help="behavioural startup model of a design: DC, transient, Monte Carlo",
                        usage="labtool predict DESIGN [--json] [--set NAME=VALUE ...] [--temp C] [--ramp S] "
-                             "[--montecarlo N] [--seed S] [--waveform OUT.csv] [--scheduler SPEC]",
+                             "[--montecarlo N] [--rare] [--seed S] [--waveform OUT.csv] [--scheduler SPEC]",
                        description="Behavioural model, not transistor-level sign-off. Give DESIGN first: "
                                    "--set takes every NAME=VALUE that follows it.")
     p.add_argument("design", metavar="DESIGN", help="design file (TOML, schema in docs/model.md)")
@@ -31,11 +33,19 @@ def register(sub) -> None:
                    help="override a design parameter by its flat name, e.g. i_start_a=2e-6")
     p.add_argument("--temp", metavar="C", help="junction temperature in °C (default: the design's)")
     p.add_argument("--ramp", metavar="S", help="supply ramp time, 10e-6 or 10us (default: the design's)")
-    p.add_argument("--montecarlo", metavar="N", type=int, help="Monte Carlo with N parts at this condition")
+    p.add_argument("--montecarlo", metavar="N", type=int,
+                   help="Monte Carlo with N parts at this condition (with --rare: at most N importance samples; "
+                        f"default {RARE_SAMPLES})")
+    p.add_argument("--rare", action="store_true",
+                   help="stuck-at-zero probability at the ppm level with a 95 %% interval: the most probable stuck "
+                        "point, then importance sampling around it (every sample a full transient)")
     p.add_argument("--seed", metavar="S", type=int, default=1, help="Monte Carlo seed (default 1)")
     p.add_argument("--waveform", metavar="OUT.csv", help="write the nominal transient as a CSV capture")
     add_scheduler_option(p)
     p.set_defaults(handler=run)
+
+
+RARE_SAMPLES = 4000
 
 
 def _plain(value):
@@ -71,14 +81,15 @@ def run(args) -> int:
     from labtool.model import DISCLAIMER, dc_analysis, load_design, monte_carlo, simulate
     from labtool.model.design import parse_assignments
     from labtool.model.montecarlo import summarise
+    from labtool.stats.intervals import exact_interval
 
     design = load_design(args.design, parse_assignments(args.assignments))
     temp = design.temperature_c if args.temp is None else parse_quantity(args.temp, "C", what="--temp")
     ramp = design.ramp_s if args.ramp is None else parse_quantity(args.ramp, "s", what="--ramp")
     if not ramp > 0:
         raise UsageError(f"--ramp {args.ramp}: must be > 0")
-    if args.montecarlo is not None and args.montecarlo < 1:
-        raise UsageError(f"--montecarlo {args.montecarlo}: must be ≥ 1")
+    if args.montecarlo is not None and args.montecarlo < (2 if args.rare else 1):
+        raise UsageError(f"--montecarlo {args.montecarlo}: must be ≥ {2 if args.rare else 1}")
     params = design.resolved(temp)
     params["ramp_s"] = ramp
     dc = dc_analysis(design, temp)
@@ -90,10 +101,16 @@ def run(args) -> int:
         write_waveform(capture, args.waveform)
     out = {"model": DISCLAIMER, "design": design.name, "source": str(Path(args.design)),
            "params": params, "dc": dc.to_json_dict(), "transient": transient}
-    if args.montecarlo:
-        mc = monte_carlo(design, conditions=[(ramp, temp)], n=args.montecarlo, seed=args.seed,
-                         scheduler=parse_scheduler(args.scheduler) if args.scheduler else None)
-        out["montecarlo"] = {"seed": args.seed, "ramp_s": ramp, "temperature_c": temp, **summarise(mc.samples)}
+    scheduler = parse_scheduler(args.scheduler) if args.scheduler else None
+    if args.rare:
+        out["montecarlo"] = rare_json(design, ramp, temp, args.montecarlo or RARE_SAMPLES, args.seed, scheduler)
+    elif args.montecarlo:
+        mc = monte_carlo(design, conditions=[(ramp, temp)], n=args.montecarlo, seed=args.seed, scheduler=scheduler)
+        summary = summarise(mc.samples, mc.failures)
+        measured = summary["n"]
+        out["montecarlo"] = {"seed": args.seed, "ramp_s": ramp, "temperature_c": temp, "method": "plain Monte Carlo",
+                             **summary, "p_stuck_ci95": list(exact_interval(summary["n_stuck"], measured))
+                             if measured else None, "failed": _failed(mc.failures)}
     out = _plain(out)
     if args.json:
         print(json.dumps(out))
@@ -102,7 +119,24 @@ def run(args) -> int:
     return 0
 
 
+def _failed(failures) -> list[dict]:
+    """The first samples that could not be simulated, with their parameters and the error."""
+    return failures.head(20).to_dict(orient="records")
+
+
+def rare_json(design, ramp: float, temp: float, n: int, seed: int, scheduler) -> dict:
+    """The ``montecarlo`` object of ``--rare``: the importance-sampling result; the plain Monte Carlo's
+    delay figures do not apply to importance samples (null)."""
+    from labtool.model.rare import stuck_probability
+
+    r = stuck_probability(design, ramp_s=ramp, temperature_c=temp, n=n, seed=seed, scheduler=scheduler)
+    return {**r.to_json_dict(), "cause": r.cause(), **dict.fromkeys(
+        ("delay_median_s", "delay_p05_s", "delay_p95_s", "delay_mean_s", "delay_std_s", "verdicts"))}
+
+
 def summary_text(out: dict, waveform: str | None) -> str:
+    from labtool.model.dc import startup_offered
+
     p, dc, tr = out["params"], out["dc"], out["transient"]
     si = format_si
     lines = [f"{out['design']} at {p['temperature_c']:g} °C, supply {p['vdd_v']:g} V ramped in {si(p['ramp_s'], 's')}"
@@ -118,9 +152,7 @@ def summary_text(out: dict, waveform: str | None) -> str:
     lines.append(f"  offset limit      an input offset at or below {si(dc['offset_limit_v'], 'V')} removes the wanted point")
     need = dc["i_start_min_a"]
     kind = p["startup_kind"]
-    offered = {"inject": p["i_start_a"], "pulldown": p["i_start_a"],
-               "kick_supply": p["c_kick_f"] * p["vdd_v"] / p["ramp_s"],  # I = C·dVDD/dt
-               "kick_enable": p["c_kick_f"] * p["vdd_v"] / p["enable_edge_s"]}.get(kind)
+    offered = startup_offered(p)  # a kick: I = C·dV/dt
     margin = ""
     if need and offered:
         margin = f" (design {si(offered, 'A')}{' while it lasts' if kind.startswith('kick') else ''}, margin ×{offered / need:.3g})"
@@ -130,9 +162,31 @@ def summary_text(out: dict, waveform: str | None) -> str:
                  f"overshoot {format(tr['overshoot_pct'], '.3g') if tr['overshoot_pct'] is not None else '—'} %, "
                  f"final {si(tr['vout_final_v'], 'V')}")
     mc = out.get("montecarlo")
-    if mc:
-        lines.append(f"  Monte Carlo       n {mc['n']} (seed {mc['seed']}): p_stuck {mc['p_stuck']:.4g}, delay median "
+    if mc and "beta" in mc:
+        lines += rare_lines(mc)
+    elif mc:
+        lines.append(f"  Monte Carlo       n {mc['n']} (seed {mc['seed']}): p_stuck {_num(mc['p_stuck'])}, delay median "
                      f"{si(mc['delay_median_s'], 's')}, p05 {si(mc['delay_p05_s'], 's')}, p95 {si(mc['delay_p95_s'], 's')}")
+    if mc and mc["n_failed"]:
+        lines.append(f"  not simulated     {mc['n_failed']} samples failed to integrate or measure (parameters "
+                     f"and errors in the JSON: montecarlo.failed)")
     if waveform:
         lines.append(f"  waveform          written to {waveform}")
     return "\n".join(lines)
+
+
+def _num(value) -> str:
+    return "—" if value is None else f"{value:.4g}"
+
+
+def rare_lines(mc: dict) -> list[str]:
+    """The readable lines of a ``--rare`` estimate: the probability with its interval, then the cause."""
+    low, high = mc["p_stuck_ci95"]
+    lines = [f"  stuck at zero     p_stuck {_num(mc['p_stuck'])} (95 % interval {_num(low)} to {_num(high)}; "
+             f"{mc['n_transients']} transients, seed {mc['seed']}, effective sample size {mc['ess']:.0f})"]
+    if mc["beta"] is not None:
+        lines.append(f"  reliability index β = {mc['beta']:.2f} (first-order estimate Φ(−β) = {mc['p_form']:.3g})")
+        lines.append(f"  most likely cause of a stuck start: {mc['cause']}")
+    lines += [f"  warning: {w}" for w in mc["warnings"]]
+    lines.append(f"  method            {mc['method']}")
+    return lines
