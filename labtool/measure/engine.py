@@ -18,7 +18,7 @@ MIN_SAMPLES = 32
 
 # The result fields written to JSON and the store, in this order (issue #3 CLI contract).
 RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz", "damping",
-                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "isupply_final_a")
+                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "vsupply_at_valid_v", "isupply_final_a")
 
 
 @dataclass(frozen=True)
@@ -37,6 +37,7 @@ class StartupResult:
     vsupply_final_v: float | None
     ramp_v_per_s: float | None
     supply_at_start_v: float | None
+    vsupply_at_valid_v: float | None = None  # supply when the output crossed its 90 % level
     isupply_final_a: float | None = None  # settled supply current, when the capture records it
     evidence: dict = field(default_factory=dict, compare=False)
     fit: StepFit | None = field(default=None, compare=False)
@@ -77,7 +78,7 @@ def measure_arrays(t_s, supply_v, output_v, limits: Limits = Limits(), supply_cu
         verdict=verdict, t_supply_s=m.t_supply_s, delay_s=m.delay_s, rise_s=m.rise_s, settle_s=m.settle_s,
         overshoot_pct=m.overshoot_pct, ring_hz=fit.ring_hz if fit else None, damping=fit.damping if fit else None,
         vout_final_v=m.output.final_v, vsupply_final_v=m.supply.final_v, ramp_v_per_s=m.ramp_v_per_s,
-        supply_at_start_v=m.supply_at_start_v, isupply_final_a=_final_level(supply_current_a),
+        supply_at_start_v=m.supply_at_start_v, vsupply_at_valid_v=m.vsupply_at_valid_v, isupply_final_a=_final_level(supply_current_a),
         evidence=evidence, fit=fit)
 
 

@@ -3,12 +3,12 @@ part identity, JSON-safe values."""
 
 from __future__ import annotations
 
-import math
 from typing import Iterator, Sequence
 
 import numpy as np
 import pandas as pd
 
+from labtool.display import plain_scalar as plain  # noqa: F401  (numpy → Python, NaN → None)
 from labtool.errors import UsageError
 
 # Verdict names from the measurement engine (CONTRACTS: labtool/measure/verdict.py VERDICTS).
@@ -64,17 +64,6 @@ def part_labels(df: pd.DataFrame) -> pd.Series:
         return part.fillna("")
     lot = df["lot"].astype("string")
     return (lot.fillna("") + "/" + part).where(part.notna() & lot.notna(), part).fillna("")
-
-
-def plain(value):
-    """numpy scalars → Python; NaN/NA → None (JSON null)."""
-    if value is None or value is pd.NA:
-        return None
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def delays(rows: pd.DataFrame) -> np.ndarray:
