@@ -8,7 +8,9 @@ the parameters were estimated from the same data) and the Anderson–Darling sta
 fitted law (Stephens, JASA 69, 1974; the e-Handbook §1.3.5.14 formula) with the composite-hypothesis
 p-value of ``scipy.stats.anderson`` (tables for estimated parameters, interpolated and clipped to
 0.01–0.25): normal on x, normal on ln x for the lognormal, and the smallest-extreme-value (Gumbel)
-law on ln x for the two-parameter Weibull (Stephens, Biometrika 64(3), 1977).
+law on ln x for the two-parameter Weibull (Stephens, Biometrika 64(3), 1977). Those tables end at
+0.15 (normal) or 0.25 (Gumbel) and at 0.01: a p-value read at a table end is a bound, not a value,
+and ``ad_pvalue_bound`` says so ("lower": the p-value is at least this; "upper": at most this).
 """
 
 from __future__ import annotations
@@ -40,6 +42,7 @@ class DistributionFit:
     ks_pvalue: float
     ad_stat: float
     ad_pvalue: float
+    ad_pvalue_bound: str | None = None  # "lower" / "upper" when read at a table end
 
     def frozen(self):
         """The fitted law as a frozen scipy.stats distribution."""
@@ -48,7 +51,7 @@ class DistributionFit:
     def to_json_dict(self) -> dict:
         return {"distribution": self.distribution, "params": dict(self.params), "n": self.n,
                 "aic": self.aic, "ks_stat": self.ks_stat, "ks_pvalue": self.ks_pvalue, "ad_stat": self.ad_stat,
-                "ad_pvalue": self.ad_pvalue}
+                "ad_pvalue": self.ad_pvalue, "ad_pvalue_bound": self.ad_pvalue_bound}
 
 
 @dataclass(frozen=True)
@@ -145,17 +148,27 @@ def _aic(name: str, x: np.ndarray) -> tuple[dict, float, float]:
 def _fitted(name: str, x: np.ndarray, params: dict, loglik: float, aic: float) -> DistributionFit:
     cdf = partial(_cdf, name, params)
     ks = stats.kstest(x, cdf)
+    ad_p, bound = _ad_pvalue(name, x)
     return DistributionFit(distribution=name, params=params, n=int(x.size), log_likelihood=loglik, aic=aic,
                            ks_stat=float(ks.statistic), ks_pvalue=float(ks.pvalue),
-                           ad_stat=anderson_darling_statistic(x, cdf), ad_pvalue=_ad_pvalue(name, x))
+                           ad_stat=anderson_darling_statistic(x, cdf), ad_pvalue=ad_p, ad_pvalue_bound=bound)
 
 
 _AD_FORM = {"normal": ("norm", False), "lognormal": ("norm", True), "weibull": ("gumbel_l", True)}
+# Ends of scipy.stats.anderson's interpolation tables (its significance levels for estimated parameters).
+_AD_TABLE_ENDS = {"norm": (0.01, 0.15), "gumbel_l": (0.01, 0.25)}
 
 
-def _ad_pvalue(name: str, x: np.ndarray) -> float:
+def table_bound(p: float, low: float, high: float) -> str | None:
+    """"lower" when ``p`` was read at the top of a table (the true p-value is at least p), "upper" at
+    its bottom (at most p), None in between."""
+    return "lower" if p >= high else "upper" if p <= low else None
+
+
+def _ad_pvalue(name: str, x: np.ndarray) -> tuple[float, str | None]:
     dist, log = _AD_FORM[name]
-    return float(stats.anderson(np.log(x) if log else x, dist, method="interpolate").pvalue)
+    p = float(stats.anderson(np.log(x) if log else x, dist, method="interpolate").pvalue)
+    return p, table_bound(p, *_AD_TABLE_ENDS[dist])
 
 
 def fit_distribution(values: np.ndarray, name: str) -> DistributionFit:

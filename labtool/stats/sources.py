@@ -14,13 +14,32 @@ from labtool.stats.table import plain
 
 def load_measurements(campaign_path: str) -> pd.DataFrame:
     """``Campaign.measurements()`` of a campaign directory (newest limits), refusing an empty table."""
+    return load_measured(campaign_path)[0]
+
+
+def load_measured(campaign_path: str):
+    """(measurement table, the :class:`~labtool.measure.Limits` it was measured with) of a campaign
+    directory: what the model must be run with to be compared with it."""
     from labtool.store import Campaign
 
     with Campaign.open(campaign_path) as camp:
         table = camp.measurements()
-    if table.empty:
-        raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
-    return table
+        if table.empty:
+            raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
+        return table, measured_limits(camp, table)
+
+
+def measured_limits(campaign, table: pd.DataFrame):
+    """The stored limits of ``table``'s measurement set (``Campaign.limits``) as Limits; defaults for
+    fields a store does not hold."""
+    import dataclasses
+
+    from labtool.measure import Limits
+
+    key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns and len(table) else None
+    stored = campaign.limits(key) if key else {}
+    known = {f.name for f in dataclasses.fields(Limits)}
+    return Limits(**{k: v for k, v in stored.items() if k in known})
 
 
 def json_line(record: dict) -> str:

@@ -66,6 +66,15 @@ def part_labels(df: pd.DataFrame) -> pd.Series:
     return (lot.fillna("") + "/" + part).where(part.notna() & lot.notna(), part).fillna("")
 
 
+def part_units(df: pd.DataFrame) -> pd.Series:
+    """The unit of a yield statement per row: the part (``LOT/PART``); a capture whose part is not
+    known counts as a part of its own (``capture:<id>``)."""
+    labels = part_labels(df)
+    if "capture_id" not in df.columns:
+        return labels.where(labels != "", pd.Series([f"row:{i}" for i in range(len(df))], index=df.index))
+    return labels.where(labels != "", "capture:" + df["capture_id"].astype(str))
+
+
 def delays(rows: pd.DataFrame) -> np.ndarray:
     if "delay_s" not in rows.columns:
         return np.empty(0)
