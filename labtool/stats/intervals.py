@@ -13,13 +13,14 @@ of the stuck count is the binomial one times the design effect 1 + (m − 1)·ρ
 estimated by moments from the parts' own counts: the with-replacement variance of the ratio k/n over
 parts, C/(C − 1)·Σ(k_i − p̂·n_i)²/n² (W. G. Cochran, Sampling Techniques, 3rd ed., 1977, ratio
 estimators in cluster sampling; from memory), against the binomial p̂(1 − p̂)/(n − 1), never below 1.
-The bound is then the exact Clopper–Pearson bound at the effective counts k/deff of n/deff, as in
-E. L. Korn and B. I. Graubard, "Confidence intervals for proportions with small expected number of
-positive counts estimated from survey data", Survey Methodology 24(2), 1998 (from memory). With one
-start per part this is the plain Clopper–Pearson bound. When no start (or every start) failed, or all
-starts are of one part, the spread between parts cannot be estimated and, as Korn and Graubard do, the
-starts are counted as they are (deff = 1): the per-start bound then assumes independent starts, and
-the statement that needs no such assumption is the bound over parts.
+The bound is then the exact Clopper–Pearson bound at the effective counts k/deff of n/deff, with the
+effective size cut by the degrees of freedom of that variance, n* = n/deff · (t₀.₉₅(n − 1)/t₀.₉₅(C − 1))²
+(E. L. Korn and B. I. Graubard, "Confidence intervals for proportions with small expected number of
+positive counts estimated from survey data", Survey Methodology 24(2), 1998; from memory), never above
+n. With one start per part this is the plain Clopper–Pearson bound. When no start (or every start)
+failed the spread between parts cannot be estimated and, as Korn and Graubard do, deff is 1; the
+degrees-of-freedom cut still applies, so a few parts started many times give a wide per-start bound.
+A group of one part is that part's own per-start rate: its starts are the trials (plain Clopper–Pearson).
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.stats import beta
+from scipy.stats import t as student_t
 
 from labtool.errors import UsageError
 
@@ -51,7 +53,8 @@ def upper_bound(k: float, n: float, confidence: float = 0.95) -> float:
 
 @dataclass(frozen=True)
 class ClusteredRate:
-    """A per-start rate over clusters (starts of parts): k of n starts in ``n_clusters`` parts."""
+    """A per-start rate over clusters (starts of parts): k of n starts in ``n_clusters`` parts; the bound
+    is Clopper–Pearson at ``n_effective`` starts (see the module notes)."""
 
     k: int
     n: int
@@ -79,6 +82,8 @@ def clustered_rate(k_by_cluster, n_by_cluster, confidence: float = 0.95) -> Clus
         spread = c / (c - 1) * float(np.sum((k_i - p * n_i) ** 2)) / n ** 2
         deff = max(1.0, spread / (p * (1.0 - p) / (n - 1)))
     n_eff = n / deff
+    if c >= 2:
+        n_eff = min(float(n), n_eff * (student_t.ppf(confidence, n - 1) / student_t.ppf(confidence, c - 1)) ** 2)
     return ClusteredRate(k, n, c, p, upper_bound(p * n_eff, n_eff, confidence), deff, n_eff)
 
 
