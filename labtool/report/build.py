@@ -404,15 +404,19 @@ def _pct(k: int, n: int) -> str:
 
 def readable_rows(frame: pd.DataFrame) -> pd.DataFrame:
     """A summary frame as people read it: p-values read at a table end shown as bounds ("≥ 0.25"),
-    and a set-up's output labelled ready before or after supply valid."""
+    a set-up's output labelled ready before or after supply valid, and the supply at which it became
+    valid shown where it was ready before (there the delay is set by the ramp)."""
     frame = frame.copy()
     for p_col, bound_col in (("delay_fit_ad_pvalue", "delay_fit_ad_pvalue_bound"), ("ad_pvalue", "ad_pvalue_bound")):
         if p_col in frame.columns and bound_col in frame.columns:
             frame[p_col] = [format_pvalue(p, b) if isinstance(b, str) else p
                             for p, b in zip(frame[p_col], frame[bound_col])]
     if "ready_before_supply_valid" in frame.columns:
-        frame["output_valid"] = frame["ready_before_supply_valid"].map(
-            lambda r: None if r is None or pd.isna(r) else "ready before supply valid" if r else "after supply valid")
+        ready = frame["ready_before_supply_valid"].map(lambda r: None if r is None or pd.isna(r) else bool(r))
+        frame["output_valid"] = ready.map(
+            lambda r: None if r is None else "ready before supply valid" if r else "after supply valid")
+        if "vsupply_at_valid_median_v" in frame.columns:
+            frame["vsupply_at_valid_median_v"] = frame["vsupply_at_valid_median_v"].where(ready.eq(True), None)
     return frame
 
 

@@ -73,3 +73,19 @@ def print_to_pdf(html_path: Path, work: Path) -> bytes:
     _run(["--no-pdf-header-footer", f"--print-to-pdf={pdf}", html_path.as_uri()], work / "profile-pdf")
     assert pdf.exists(), "Chromium wrote no PDF"
     return pdf.read_bytes()
+
+
+def visible_text(page: str, work: Path, selector: str) -> list[str]:
+    """What a person sees of every element matching ``selector``: its ``innerText`` as Chromium lays it
+    out (after the stylesheet, so a CSS case transform shows)."""
+    script = ("<script>window.addEventListener('load', function () {"
+              "var out = Array.prototype.map.call(document.querySelectorAll(" + json.dumps(selector) + "),"
+              " function (e) { return e.innerText; });"
+              "var pre = document.createElement('pre'); pre.id = 'labtool-text';"
+              "pre.textContent = JSON.stringify(out); document.body.appendChild(pre); });</script>")
+    path = work / "text.html"
+    path.write_text(page.replace("</body>", script + "</body>"), encoding="utf-8")
+    done = _run(["--virtual-time-budget=5000", "--dump-dom", path.as_uri()], work / "profile-text")
+    m = re.search(r'<pre id="labtool-text">(.*?)</pre>', done.stdout, re.S)
+    assert m, f"the text check did not run (exit {done.returncode}): {done.stderr[-800:]}"
+    return json.loads(m.group(1).replace("&quot;", '"').replace("&amp;", "&").replace("&lt;", "<").replace("&gt;", ">"))

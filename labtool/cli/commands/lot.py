@@ -33,11 +33,13 @@ def register(sub) -> None:
 
 def readable_setup(rec: dict) -> dict:
     """A set-up row for the readable table: the fit's law, the outlier count, and whether the output was
-    ready before or after supply valid (a negative delay is not an early part but a slow ramp)."""
+    ready before or after supply valid (a negative delay is not an early part but a slow ramp); where it
+    was ready before, the supply at which it became valid is the figure to read, so it is shown there."""
     ready = rec["ready_before_supply_valid"]
     return {**rec, "delay_fit": rec["delay_fit"]["distribution"] if rec["delay_fit"] else None,
             "n_outliers": len(rec["outliers"]),
-            "output_valid": None if ready is None else "ready before supply valid" if ready else "after supply valid"}
+            "output_valid": None if ready is None else "ready before supply valid" if ready else "after supply valid",
+            "vsupply_at_valid_median_v": rec["vsupply_at_valid_median_v"] if ready else None}
 
 
 def run(args) -> int:
