@@ -24,8 +24,9 @@ import pandas as pd
 
 from labtool.errors import UsageError
 from labtool.stats.intervals import ClusteredRate, clustered_rate, upper_bound
-from labtool.stats.setups import SetupSummary, split_setups, summarise_setup, verdict_counts
-from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, groups, part_labels, part_units, plain,
+from labtool.measure.verdict import VERDICTS
+from labtool.stats.setups import SetupSummary, summarise_setups
+from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, part_labels, part_units, plain,
                                  require_columns)
 
 # Keys of a group row that describe one set-up's delays: null unless the group holds exactly one.
@@ -86,34 +87,44 @@ def intermittent_flags(df: pd.DataFrame, labels: pd.Series, by: Sequence[str] = 
     return (both & (frame["label"] != "")).to_numpy()
 
 
-def _one_group(group: dict, rows: pd.DataFrame, spec_max_delay_s: float | None) -> LotStats:
-    units = rows["_unit"]
-    powered = (rows["verdict"] != "no_supply").to_numpy()
-    stuck = (rows["verdict"] == STUCK).to_numpy()
-    per_part = pd.DataFrame({"unit": units.to_numpy(), "k": stuck & powered, "n": powered}).groupby("unit").sum()
-    tested = per_part[per_part["n"] > 0]
-    n_stuck_parts = int((tested["k"] > 0).sum())
-    setups = tuple(summarise_setup(s, part, part["_unit"], spec_max_delay_s) for s, part in split_setups(rows))
-    return LotStats(
-        group=group, n_captures=len(rows), n_parts=int(units.nunique()), n_parts_tested=len(tested),
-        n_parts_stuck=n_stuck_parts, parts_stuck_upper95=upper_bound(n_stuck_parts, len(tested)),
-        start_stuck=clustered_rate(tested["k"].to_numpy(), tested["n"].to_numpy()),
-        counts=verdict_counts(rows["verdict"]),
-        intermittent_parts=tuple(sorted(set(rows.loc[rows["_intermittent"], "_label"]))),
-        spec_max_delay_s=spec_max_delay_s, setups=setups)
-
-
 def lot_statistics(measurements: pd.DataFrame, by: Sequence[str] = ("lot",),
                    spec_max_delay_s: float | None = None) -> list[LotStats]:
-    """One :class:`LotStats` per group of ``by`` (any condition or tag columns)."""
+    """One :class:`LotStats` per group of ``by`` (any condition or tag columns), in sorted group order.
+    Every group is summarised in one pass over the table (thousands of groups and set-ups are usual)."""
     if measurements.empty:
         raise UsageError("no measurements: run `labtool measure CAMPAIGN` first")
     require_columns(measurements, ["verdict"], "lot statistics")
     require_columns(measurements, by, "--by")
     labels = part_labels(measurements)
-    table = measurements.assign(_label=labels.to_numpy(), _unit=part_units(measurements).to_numpy(),
-                                _intermittent=intermittent_flags(measurements, labels, by))
-    return [_one_group(g, rows, spec_max_delay_s) for g, rows in groups(table, by, "--by")]
+    units = part_units(measurements)
+    setups = summarise_setups(measurements, by, units, spec_max_delay_s)
+    codes = measurements.groupby(list(by), dropna=False, sort=True).ngroup().to_numpy() if by \
+        else np.zeros(len(measurements), int)
+    first = np.unique(codes, return_index=True)[1]
+    verdict = measurements["verdict"].to_numpy()
+    powered = verdict != "no_supply"
+    per_part = pd.DataFrame({"group": codes, "unit": units.to_numpy(), "k": powered & (verdict == STUCK),
+                             "n": powered}).groupby(["group", "unit"], sort=False).sum()
+    per_group = dict(tuple(per_part.groupby(level="group")))
+    counts = pd.crosstab(codes, verdict).reindex(columns=list(VERDICTS), fill_value=0)
+    n_rows = np.bincount(codes)
+    flagged = intermittent_flags(measurements, labels, by)
+    intermittent = pd.Series(labels.to_numpy()[flagged]).groupby(codes[flagged]).agg(lambda x: tuple(sorted(set(x))))
+    out = []
+    for code, i in enumerate(first):
+        group = {k: plain(measurements[k].iloc[i]) for k in by}
+        parts = per_group[code]
+        tested = parts[parts["n"] > 0]
+        n_stuck_parts = int((tested["k"] > 0).sum())
+        out.append(LotStats(
+            group=group, n_captures=int(n_rows[code]),
+            n_parts=len(parts), n_parts_tested=len(tested), n_parts_stuck=n_stuck_parts,
+            parts_stuck_upper95=upper_bound(n_stuck_parts, len(tested)),
+            start_stuck=clustered_rate(tested["k"].to_numpy(), tested["n"].to_numpy()),
+            counts={f"n_{v}": int(counts.loc[code, v]) for v in VERDICTS},
+            intermittent_parts=intermittent.get(code, ()), spec_max_delay_s=spec_max_delay_s,
+            setups=tuple(setups[tuple(group.values())])))
+    return out
 
 
 def _flat(record: dict) -> dict:

@@ -110,14 +110,6 @@ def process_capability(mean: float, std: float, *, usl: float | None = None, lsl
     return float(min(sides) / (3.0 * std))
 
 
-def outliers(values: np.ndarray, ids: Sequence[str]) -> tuple[str, ...]:
-    """Ids of the values with |modified z| > 3.5 (none screened below MIN_FOR_OUTLIERS values)."""
-    if len(values) < MIN_FOR_OUTLIERS:
-        return ()
-    z = np.nan_to_num(modified_z_scores(values), nan=0.0)
-    return tuple(sorted(str(i) for i, flag in zip(ids, np.abs(z) > MODIFIED_Z_LIMIT) if flag))
-
-
 def verdict_counts(verdicts: pd.Series) -> dict[str, int]:
     """``n_<verdict>`` for every verdict of the engine, in its order (zero when absent)."""
     counts = verdicts.value_counts()
@@ -163,19 +155,62 @@ def delay_fields(q: Quantiles | None) -> dict:
     return {("delay_n" if n == "n" else f"delay_{n}_s"): (None if q is None else getattr(q, n)) for n in names}
 
 
-def summarise_setup(setup: Mapping[str, object], rows: pd.DataFrame, units: pd.Series,
-                    spec_max_delay_s: float | None = None) -> SetupSummary:
-    """One set-up's :class:`SetupSummary`; ``units`` names the part of each row (the yield unit)."""
-    mask = delay_mask(rows)
-    d = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(np.float64)[mask] if mask.any() else np.empty(0)
-    q = quantiles(d)
-    fit = best_fit(d)
-    ids = rows["capture_id"].to_numpy()[mask] if "capture_id" in rows.columns else np.arange(d.size)
-    vsup = counted(rows, "vsupply_at_valid_v")
-    stuck = rows["verdict"].to_numpy() == STUCK
-    return SetupSummary(
-        setup=dict(setup), n_captures=len(rows), n_parts=int(units.nunique()),
-        n_parts_stuck=int(units[stuck].nunique()), counts=verdict_counts(rows["verdict"]), delay=q,
-        delay_fit=fit.best if fit else None, spec_max_delay_s=spec_max_delay_s,
-        cpk=process_capability(q.mean, q.std, usl=spec_max_delay_s) if spec_max_delay_s is not None else None,
-        outliers=outliers(d, ids), vsupply_at_valid=quantiles(vsup))
+def _by_code(codes: np.ndarray, values: np.ndarray, n_codes: int) -> list[Quantiles]:
+    """:class:`Quantiles` of ``values`` per code 0..n_codes−1 (one pass, not one per set-up)."""
+    frame = pd.DataFrame({"code": codes, "v": values})
+    g = frame.groupby("code")["v"]
+    stats = pd.DataFrame({"n": g.count(), "median": g.median(), "p05": g.quantile(0.05), "p95": g.quantile(0.95),
+                          "mean": g.mean(), "std": g.std(ddof=1)}).reindex(range(n_codes))
+    out = []
+    for row in stats.itertuples(index=False):
+        n = 0 if pd.isna(row.n) else int(row.n)
+        out.append(Quantiles(n, *(plain(getattr(row, k)) if n else None for k in ("median", "p05", "p95", "mean")),
+                             plain(row.std) if n > 1 else None))
+    return out
+
+
+def summarise_setups(df: pd.DataFrame, by: Sequence[str], units: pd.Series,
+                     spec_max_delay_s: float | None = None) -> dict[tuple, list[SetupSummary]]:
+    """Every set-up of every group of ``by`` at once: group key (its values, as ``groups`` gives them) →
+    the group's :class:`SetupSummary` list, sorted by set-up. ``units`` names the part of each row."""
+    skeys = setup_keys(df)
+    cols = list(dict.fromkeys([*by, *skeys]))
+    codes = df.groupby(cols, dropna=False, sort=True).ngroup().to_numpy() if cols else np.zeros(len(df), int)
+    n_codes = int(codes.max()) + 1 if len(df) else 0
+    first = np.unique(codes, return_index=True)[1]
+    keyed = df[cols].iloc[first] if cols else pd.DataFrame(index=range(n_codes))
+    mask = delay_mask(df)
+    d = pd.to_numeric(df["delay_s"], errors="coerce").to_numpy(np.float64)[mask] if mask.any() else np.empty(0)
+    dc = codes[mask]
+    delay = _by_code(dc, d, n_codes)
+    vsup = pd.to_numeric(df.get("vsupply_at_valid_v", pd.Series(np.nan, df.index)), errors="coerce").to_numpy(
+        np.float64)[mask]
+    supply = _by_code(dc[np.isfinite(vsup)], vsup[np.isfinite(vsup)], n_codes)
+    verdicts = pd.crosstab(codes, df["verdict"].to_numpy()).reindex(index=range(n_codes), columns=list(VERDICTS),
+                                                                    fill_value=0).to_numpy()
+    unit = units.to_numpy()
+    n_parts = pd.Series(unit).groupby(codes).nunique().reindex(range(n_codes), fill_value=0).to_numpy()
+    stuck = df["verdict"].to_numpy() == STUCK
+    n_stuck = pd.Series(unit[stuck]).groupby(codes[stuck]).nunique().reindex(range(n_codes), fill_value=0).to_numpy()
+    n_rows = np.bincount(codes, minlength=n_codes)
+    count = np.bincount(dc, minlength=n_codes)
+    z = np.nan_to_num(modified_z_scores(d, dc), nan=0.0) if d.size else np.empty(0)
+    flagged = (np.abs(z) > MODIFIED_Z_LIMIT) & (count[dc] >= MIN_FOR_OUTLIERS)
+    ids = df["capture_id"].to_numpy()[mask] if "capture_id" in df.columns else np.arange(d.size).astype(str)
+    order = np.argsort(dc, kind="stable")
+    bounds = np.searchsorted(dc[order], np.arange(n_codes + 1))
+    out: dict[tuple, list[SetupSummary]] = {}
+    for code, row in enumerate(keyed.itertuples(index=False)):
+        values = dict(zip(cols, (plain(v) for v in row)))
+        members = order[bounds[code]:bounds[code + 1]]
+        fit = best_fit(d[members])
+        q = delay[code]
+        summary = SetupSummary(
+            setup={k: values.get(k) for k in SETUP_KEYS}, n_captures=int(n_rows[code]),
+            n_parts=int(n_parts[code]), n_parts_stuck=int(n_stuck[code]),
+            counts={f"n_{v}": int(n) for v, n in zip(VERDICTS, verdicts[code])}, delay=q,
+            delay_fit=fit.best if fit else None, spec_max_delay_s=spec_max_delay_s,
+            cpk=process_capability(q.mean, q.std, usl=spec_max_delay_s) if spec_max_delay_s is not None else None,
+            outliers=tuple(sorted(str(i) for i in ids[members][flagged[members]])), vsupply_at_valid=supply[code])
+        out.setdefault(tuple(values.get(k) for k in by), []).append(summary)
+    return out

@@ -5,7 +5,7 @@ import pytest
 from scipy import stats
 
 from labtool.errors import UsageError
-from labtool.stats.distributions import anderson_darling_statistic, best_fit, fit_distribution
+from labtool.stats.distributions import anderson_darling_statistic, best_fit, fit_distribution, ks_test
 from labtool.stats.intervals import clustered_rate, exact_interval, failure_fraction, rule_of_three, upper_bound
 from labtool.stats.outliers import grubbs, modified_z_scores, outlier_mask
 
@@ -86,7 +86,22 @@ def test_fit_goodness_matches_scipy_kstest():
     assert np.exp(fit.params["mu_ln"]) == pytest.approx(scale, rel=1e-4)
     ks = stats.kstest(x, stats.lognorm(s, 0, scale).cdf)
     assert fit.ks_stat == pytest.approx(ks.statistic, rel=1e-3)
+    assert fit.ks_pvalue == pytest.approx(ks.pvalue, abs=0.02)  # Stephens' form of the exact law kstest uses
     assert fit.aic == pytest.approx(2 * 2 - 2 * np.sum(stats.lognorm.logpdf(x, s, 0, scale)), rel=1e-6)
+
+
+@pytest.mark.parametrize("n", [8, 12, 28, 100, 400])
+def test_ks_p_value_follows_the_exact_kolmogorov_law(n):
+    # Reference: scipy.stats.kstwo.sf(D, n), the exact law of the two-sided statistic (what kstest uses);
+    # Stephens' form (JRSS B 32(1), 1970, from memory) is within 0.005 where p < 0.2, 0.025 elsewhere.
+    for d in np.linspace(0.02, 0.6, 30):
+        x = np.linspace(0, 1, n, endpoint=False) + 0.5 / n  # a sample whose D against U(0, 1) is ~1/(2n)
+        shift = d - 0.5 / n
+        if shift < 0:
+            continue
+        got_d, p = ks_test(x, lambda v: np.clip(v + shift, 0.0, 1.0))
+        exact = stats.kstwo.sf(got_d, n)
+        assert abs(p - exact) < (0.005 if exact < 0.2 else 0.025), (n, got_d)
 
 
 def test_weibull_fit_agrees_with_scipy_on_microsecond_data():
@@ -115,10 +130,18 @@ def test_anderson_darling_p_values_use_the_matching_scipy_tables():
     # ln x against the smallest-extreme-value law (two-parameter Weibull; Stephens, Biometrika 1977).
     rng = np.random.default_rng(6)  # invented samples
     w = rng.weibull(2.0, 200) * 1e-5
-    assert fit_distribution(w, "weibull").ad_pvalue == stats.anderson(np.log(w), "gumbel_l", method="interpolate").pvalue
+    # (the Weibull MLE here and scipy's Gumbel fit solve one likelihood equation: equal to 1e-9)
+    assert fit_distribution(w, "weibull").ad_pvalue == pytest.approx(
+        stats.anderson(np.log(w), "gumbel_l", method="interpolate").pvalue, rel=1e-9)
     assert fit_distribution(w, "weibull").ad_pvalue > 0.05
     ln = rng.lognormal(np.log(5e-6), 0.5, 200)
-    assert fit_distribution(ln, "lognormal").ad_pvalue == stats.anderson(np.log(ln), "norm", method="interpolate").pvalue
+    assert fit_distribution(ln, "lognormal").ad_pvalue == pytest.approx(
+        stats.anderson(np.log(ln), "norm", method="interpolate").pvalue, rel=1e-12)
+    for seed in range(40):  # small to large samples, every table segment and both ends
+        x = np.random.default_rng(seed).lognormal(-12, 0.4, 8 + 3 * seed)
+        for name, y, table in (("normal", x, "norm"), ("lognormal", np.log(x), "norm"), ("weibull", np.log(x), "gumbel_l")):
+            assert fit_distribution(x, name).ad_pvalue == pytest.approx(
+                stats.anderson(y, table, method="interpolate").pvalue, rel=1e-8, abs=1e-12), (seed, name)
     assert fit_distribution(ln, "normal").ad_pvalue <= 0.01  # a skewed sample is not normal
 
 
