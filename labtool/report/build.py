@@ -380,8 +380,8 @@ GROUP_COLUMNS = ("n_captures", "n_parts", "n_parts_stuck", "parts_stuck_upper95"
                  "start_stuck_rate", "start_stuck_upper95", "n_started", "n_ringing", "n_slow_start", "n_wrong_level",
                  "n_incomplete", "n_recollapse", "n_stuck_at_zero", "n_no_supply", "n_setups", "intermittent_parts")
 SETUP_COLUMNS = ("ramp_s", "temperature_c", "vdd_v", "n_captures", "n_parts_stuck", "delay_n", "delay_median_s",
-                 "delay_p05_s", "delay_p95_s", "delay_mean_s", "delay_std_s", "output_valid",
-                 "vsupply_at_valid_median_v", "delay_fit_distribution", "delay_fit_ad_pvalue", "cpk", "outliers")
+                 "delay_p05_s", "delay_p95_s", "output_valid", "vsupply_at_valid_median_v", "delay_mean_s", "delay_std_s",
+                 "delay_fit_distribution", "delay_fit_ad_pvalue", "cpk", "outliers")
 COMPARISON_COLUMNS = ("n_measured", "n_setups", "measured_n_parts", "measured_n_parts_stuck", "predicted_n_parts",
                       "predicted_p_part_stuck", "stuck_pvalue", "finding")
 COMPARISON_SETUP_COLUMNS = ("ramp_s", "temperature_c", "vdd_v", "n_measured", "n_parts", "measured_delay_median_s",

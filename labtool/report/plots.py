@@ -177,9 +177,7 @@ def _histogram_panel(ax, rows: pd.DataFrame, title: str, spec_max_delay_s, predi
     factor, unit = time_scale(data)
     if edges[0] < 0:  # a negative delay: the output was up before the supply was valid
         ax.axvspan(edges[0] / factor, min(0.0, edges[-1]) / factor, color=style.INKS.band, alpha=0.35, linewidth=0,
-                   gid="before_supply_valid")
-        ax.text(0.01, 0.03, "ready before\nsupply valid", transform=ax.transAxes, ha="left", va="bottom", fontsize=7,
-                color=style.INKS.slate)
+                   gid="before_supply_valid", label="ready before supply valid")
     ax.bar(edges[:-1] / factor, counts, width=np.diff(edges) / factor, align="edge", color=style.INKS.bars,
            edgecolor=style.INKS.ink, linewidth=0.6, label="measured", gid="measured")
     if predicted_counts is not None:
@@ -206,7 +204,7 @@ def _histogram_panel(ax, rows: pd.DataFrame, title: str, spec_max_delay_s, predi
     else:
         ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
                 color=style.INKS.slate)
-    ax.legend(loc="lower right", fontsize=7)
+    ax.legend(loc="best", fontsize=7)
     return {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts, "time_unit": unit}
 
 

@@ -81,7 +81,7 @@ def test_histogram_has_one_panel_per_setup_with_that_setups_prediction():
     titles = [ax.get_title(loc="left") for ax in plot.figure.axes]
     assert "ramp 100 µs · 25 °C" in titles and "ramp 100 ms · 25 °C" in titles and "ramp 100 µs · -40 °C" in titles
     assert sum(r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured")) == 6
-    assert "ready before\nsupply valid" in _texts(plot.figure)  # the negative panel says what it means
+    assert "ready before supply valid" in _texts(plot.figure)  # the negative panel says what it means
     spans = _by_gid(plot.figure, Rectangle, "before_supply_valid")
     assert len(spans) == 1 and spans[0].axes.get_title(loc="left") == "ramp 100 ms · 25 °C"
 
