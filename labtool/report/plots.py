@@ -23,6 +23,7 @@ from matplotlib.patches import Circle, Patch, Rectangle
 from matplotlib import rc_context
 from matplotlib.lines import Line2D
 
+from labtool.display import format_cell
 from labtool.report import style
 from labtool.stats.setups import (SETUP_KEYS, counted, delay_mask, quantiles, setup_keys, setup_tuple,
                                   split_setups)
@@ -684,18 +685,17 @@ def _triage_panel(ax, panel: TriagePanel, lot_label: str) -> None:
     ax.set_title(panel.title, fontsize=9.5)
 
 
-_CAPTURE_COLUMNS = (("temperature_c", "temperature", "°C"), ("ramp_s", "ramp time", "s"), ("repeat", "repeat", ""),
-                    ("verdict", "verdict", None), ("delay_s", "startup delay", "s"), ("settle_s", "settling", "s"))
+_CAPTURE_COLUMNS = (("temperature_c", "temperature"), ("ramp_s", "ramp time"), ("repeat", "repeat"),
+                    ("verdict", "verdict"), ("delay_s", "startup delay"), ("settle_s", "settling"))
 
 
-def _cell(value, unit: str | None) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "—"
-    if unit is None:
-        return style.verdict_style(str(value)).label if str(value) in style.VERDICT_STYLES else str(value)
-    if unit in ("", "°C"):
-        return f"{float(value):g}{' ' + unit if unit else ''}"
-    return format_si(float(value), unit)
+def _cell(column: str, value) -> str:
+    """A triage-table cell: a verdict's label, else the value in its column's unit (labtool.display)."""
+    if column == "verdict" and str(value) in style.VERDICT_STYLES:
+        return style.VERDICT_STYLES[str(value)].label
+    if column == "repeat" and isinstance(value, float) and value.is_integer():
+        value = int(value)
+    return format_cell(column, value, digits=3)
 
 
 _MAX_TABLE_ROWS = 14
@@ -704,17 +704,17 @@ _MAX_TABLE_ROWS = 14
 def _captures_table(ax, captures: pd.DataFrame, max_rows: int = _MAX_TABLE_ROWS) -> None:
     cols = [c for c in _CAPTURE_COLUMNS if c[0] in captures.columns]
     shown = captures.head(max_rows)
-    cells = [[_cell(row[c], unit) for c, _, unit in cols] for _, row in shown.iterrows()]
+    cells = [[_cell(c, row[c]) for c, _ in cols] for _, row in shown.iterrows()]
     ax.set_title(f"Captures of this part ({len(captures)}{', first ' + str(max_rows) if len(captures) > max_rows else ''})",
                  fontsize=10)
     if not cells:
         ax.text(0.0, 0.5, "no captures", fontsize=9)
         return
-    table = ax.table(cellText=cells, colLabels=[h for _, h, _ in cols], loc="upper center", cellLoc="center")
+    table = ax.table(cellText=cells, colLabels=[h for _, h in cols], loc="upper center", cellLoc="center")
     table.auto_set_font_size(False)
     table.set_fontsize(7.5)
     table.scale(1.0, 1.15)
-    vcol = [c for c, _, _ in cols].index("verdict") if any(c == "verdict" for c, _, _ in cols) else None
+    vcol = [c for c, _ in cols].index("verdict") if any(c == "verdict" for c, _ in cols) else None
     for (r, c), cell in table.get_celld().items():
         cell.set_edgecolor(style.INKS.grid)
         if r == 0:

@@ -105,6 +105,24 @@ def test_captions_use_the_supply_valid_level_the_campaign_was_measured_with(camp
     assert "supply valid (supply at 1.5 V)" in page and "supply at 90 %" not in page
 
 
+def test_the_model_overlay_is_run_with_the_campaigns_limits(campaign, tmp_path, monkeypatch):
+    import labtool.model
+    from labtool.errors import ModelError
+    from labtool.measure import Limits
+    from labtool.model import Design
+
+    seen = []
+
+    def asked(*args, **kwargs):  # note what the model was asked, then stop the report there
+        seen.append(kwargs.get("limits"))
+        raise ModelError("stopped by the test")
+
+    monkeypatch.setattr(labtool.model, "monte_carlo", asked)
+    with pytest.raises(ModelError, match="stopped by the test"):
+        write_report(campaign, tmp_path / "out", design=Design(name="ZR-4410"), model_samples=3)
+    assert seen == [Limits(max_delay_s=50e-6)]  # what conftest.py measured the campaign with
+
+
 def test_clear_errors_for_an_unmeasured_campaign_and_a_bad_out_dir(tmp_path):
     with Campaign.open(tmp_path / "empty", create=True):
         pass
