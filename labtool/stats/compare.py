@@ -44,7 +44,7 @@ from labtool.errors import UsageError
 from labtool.stats.distributions import table_bound
 from labtool.stats.predictions import NUMERIC_CONDITIONS, TEXT_CONDITIONS
 from labtool.stats.setups import Quantiles, counted, delay_mask, quantiles
-from labtool.stats.table import STUCK, groups, part_units, plain, require_columns
+from labtool.stats.table import STUCK, groups, leading, part_units, plain, require_columns
 from labtool.units import format_si
 
 ALPHA = 0.05
@@ -380,8 +380,10 @@ def compare(measurements: pd.DataFrame, predictions: pd.DataFrame, by: Sequence[
 
 def comparison_table(comparisons: Sequence[Comparison]) -> pd.DataFrame:
     """Each group row followed by its set-up rows (column ``row``), lists comma-joined."""
+    comparisons = list(comparisons)
     records = []
     for c in comparisons:
         for rec in c.json_rows():
             records.append({k: ",".join(map(str, v)) if isinstance(v, list) else v for k, v in rec.items()})
-    return pd.DataFrame.from_records(records)
+    first = ["row", *comparisons[0].group, *comparisons[0].match_columns] if comparisons else []
+    return leading(pd.DataFrame.from_records(records), first)

@@ -25,9 +25,9 @@ import pandas as pd
 from labtool.errors import UsageError
 from labtool.stats.intervals import ClusteredRate, clustered_rate, upper_bound
 from labtool.measure.verdict import VERDICTS
-from labtool.stats.setups import SetupSummary, summarise_setups
-from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, part_labels, part_units, plain,
-                                 require_columns)
+from labtool.stats.setups import SETUP_KEYS, SetupSummary, summarise_setups
+from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, leading, part_labels, part_units,
+                                 plain, require_columns)
 
 # Keys of a group row that describe one set-up's delays: null unless the group holds exactly one.
 _ONE_SETUP_KEYS = ("delay_n", "delay_median_s", "delay_p05_s", "delay_p95_s", "delay_mean_s", "delay_std_s",
@@ -140,8 +140,12 @@ def _flat(record: dict) -> dict:
 
 
 def lot_table(stats: Sequence[LotStats]) -> pd.DataFrame:
-    """DataFrame form: each group row followed by its set-up rows (column ``row``: group or setup)."""
-    return pd.DataFrame.from_records([_flat(r) for s in stats for r in s.json_rows()])
+    """DataFrame form: each group row followed by its set-up rows (column ``row``: group or setup);
+    the group keys and the set-up keys lead."""
+    stats = list(stats)
+    frame = pd.DataFrame.from_records([_flat(r) for s in stats for r in s.json_rows()])
+    return leading(frame, ["row", *(stats[0].group if stats else ()), *SETUP_KEYS])
+
 
 
 def setup_table(stats: Sequence[LotStats]) -> pd.DataFrame:

@@ -80,3 +80,9 @@ def delays(rows: pd.DataFrame) -> np.ndarray:
         return np.empty(0)
     d = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(dtype=np.float64)
     return d[np.isfinite(d)]
+
+
+def leading(frame: pd.DataFrame, first: Sequence[str]) -> pd.DataFrame:
+    """``frame`` with the columns ``first`` (those it has) in front, the others after in their order."""
+    lead = [c for c in dict.fromkeys(first) if c in frame.columns]
+    return frame[[*lead, *(c for c in frame.columns if c not in lead)]]
