@@ -21,19 +21,19 @@ import numpy as np
 import pandas as pd
 
 from labtool import __version__
+from labtool.atomic import write_atomic
+from labtool.display import format_pvalue
 from labtool.errors import LabtoolError, UsageError
 from labtool.execute import Scheduler, run_batch
+from labtool.measure.limits import Limits
 from labtool.report import html as report_html
 from labtool.report import plots
-from labtool.atomic import write_atomic
 from labtool.report.traces import Trace, envelope, trace_from_capture
 from labtool.report.workbook import write_workbook
-from labtool.display import format_pvalue
-from labtool.measure.limits import Limits
 from labtool.stats.compare import comparison_table, compare
 from labtool.stats.lot import lot_statistics, lot_table, setup_table
-from labtool.stats.sources import measured_limits
 from labtool.stats.setups import SETUP_KEYS, counted, setup_tuple, split_setups
+from labtool.stats.sources import measured_limits
 from labtool.stats.table import CAME_UP, groups, parse_keys, part_labels
 from labtool.stats.triage import triage
 from labtool.units import format_si

@@ -23,8 +23,8 @@ import numpy as np
 import pandas as pd
 
 from labtool.errors import UsageError
-from labtool.stats.intervals import ClusteredRate, clustered_rate, upper_bound
 from labtool.measure.verdict import VERDICTS
+from labtool.stats.intervals import ClusteredRate, clustered_rate, upper_bound
 from labtool.stats.setups import SETUP_KEYS, SetupSummary, summarise_setups
 from labtool.stats.table import (CAME_UP, FAILED_TO_HOLD, STUCK, cell_keys, leading, part_labels, part_units,
                                  plain, require_columns)
