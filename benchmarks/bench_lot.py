@@ -1,5 +1,7 @@
 """Lot statistics over 100,000 measurement rows (goal: under 5 s). Invented table shaped like
-``Campaign.measurements()``: 3 lots × 3 wafers × 100 parts × 4 ramps × 3 temperatures × ~9 power cycles."""
+``Campaign.measurements()``: 3 lots × 3 wafers × 100 parts × 4 ramps × 3 temperatures × ~9 power cycles.
+Delay figures are per set-up (ramp × temperature × supply), so grouping by part means 3,600 set-ups,
+each with its own fitted law."""
 
 from __future__ import annotations
 
@@ -41,9 +43,10 @@ def main() -> None:
     df = measurement_rows()
     for by in (("lot",), ("lot", "wafer"), ("lot", "temperature_c", "ramp_s"), ("lot", "part")):
         best = min(_time(lambda: lot_statistics(df, by=by, spec_max_delay_s=20e-6)) for _ in range(3))
-        n_groups = len(lot_statistics(df, by=by))
-        print(f"lot statistics, {len(df):,} rows, by {','.join(by)} ({n_groups} groups): {best:.2f} s "
-              f"(best of 3; goal < 5 s)")
+        stats = lot_statistics(df, by=by)
+        n_setups = sum(len(s.setups) for s in stats)
+        print(f"lot statistics, {len(df):,} rows, by {','.join(by)} ({len(stats)} groups, {n_setups} set-ups, "
+              f"each with its own delay fit): {best:.2f} s (best of 3; goal < 5 s)")
 
 
 if __name__ == "__main__":

@@ -103,13 +103,19 @@ def parse_level(text: str | float, *, what: str = "level") -> tuple[str, float]:
 
 
 def format_si(value: float | None, unit: str, digits: int = 3) -> str:
-    """Format ``value`` with an engineering SI prefix: 2.5e-5 s → '25.0 µs'."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
+    """Format ``value`` with an engineering SI prefix to ``digits`` significant digits: 2.5e-5 s → '25 µs'.
+
+    The value is rounded before the prefix is chosen, so a value that rounds up to the next power of
+    1000 takes the next prefix: 999.6e-6 s → '1 ms' at three digits, '999.6 µs' at four.
+    """
+    if value is None or not math.isfinite(value):
         return "—"
     if value == 0:
         return f"0 {unit}"
-    exp3 = int(math.floor(math.log10(abs(value)) / 3)) * 3
-    exp3 = max(-18, min(24, exp3))
-    prefix = _PREFIX_BY_EXPONENT[exp3]
-    scaled = value / 10.0 ** exp3
-    return f"{scaled:.{digits}g} {prefix}{unit}"
+    rounded = float(f"{value:.{digits}g}")
+    exp3 = max(-18, min(24, int(math.floor(math.log10(abs(rounded)) / 3)) * 3))
+    text = f"{rounded / 10.0 ** exp3:.{digits}g}"
+    if abs(float(text)) >= 1000 and exp3 < 24:  # log10 a hair below a power of ten
+        exp3 += 3
+        text = f"{rounded / 10.0 ** exp3:.{digits}g}"
+    return f"{text} {_PREFIX_BY_EXPONENT[exp3]}{unit}"

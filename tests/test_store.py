@@ -88,6 +88,25 @@ def test_measurements_replace_previous_results_for_the_same_limits(tmp_path):
     assert m.loc[0, "verdict"] == "slow_start" and m.loc[0, "delay_s"] == 2e-5 and m.loc[0, "lot"] == "L9"
 
 
+def test_only_the_current_version_of_a_changed_file_is_measured(tmp_path):
+    vdd, vref = _ramp()
+    old, new = make_capture(vdd, vref, 1e-6, source="a.csv"), make_capture(vdd, vref * 1.01, 1e-6, source="a.csv")
+    other = make_capture(*_ramp(seed=3), 1e-6, source="b.csv")
+    with Campaign.open(tmp_path / "c", create=True) as camp:
+        for cap in (old, other):
+            camp.add_capture(cap)
+        camp.save_measurements([{"capture_id": c.capture_id, "verdict": "started"} for c in (old, other)],
+                               limits_key="k", limits_json="{}")
+        assert sorted(camp.measurements()["capture_id"]) == sorted([old.capture_id, other.capture_id])
+        camp.add_capture(new)  # the file changed; not yet measured again: its old result no longer counts
+        assert list(camp.measurements()["capture_id"]) == [other.capture_id]
+        camp.save_measurements([{"capture_id": new.capture_id, "verdict": "stuck_at_zero"}], limits_key="k",
+                               limits_json="{}")
+        m = camp.measurements()
+        assert list(m["capture_id"]) == [new.capture_id, other.capture_id] and list(m["version"]) == [2, 1]
+        assert list(m["verdict"]) == ["stuck_at_zero", "started"]
+
+
 def test_lot_names_cannot_steer_writes_outside_the_campaign(tmp_path):
     cap = make_capture(*_ramp(), 1e-6, conditions=Conditions(lot="../../etc"))
     with Campaign.open(tmp_path / "c", create=True) as camp:

@@ -74,3 +74,15 @@ def test_a_bare_prefix_after_a_number_is_only_a_power_of_1000():
 def test_format_si_picks_an_engineering_prefix():
     assert format_si(2.5e-5, "s") == "25 µs"
     assert format_si(0.1, "s") == "100 ms"
+
+
+@pytest.mark.parametrize("value,digits,text", [
+    (999.6e-6, 3, "1 ms"), (999.6e-6, 4, "999.6 µs"), (999.96e-6, 4, "1 ms"), (-999.6e-6, 3, "-1 ms"),
+    (999.5e3, 3, "1 MV"), (0.9996, 3, "1 V"), (1e-3, 3, "1 ms"), (-2.317e-4, 3, "-232 µs"), (1.2345e-9, 2, "1.2 ns"),
+])
+def test_format_si_rounds_before_it_picks_the_prefix(value, digits, text):
+    # BIPM SI Brochure, 9th ed., §3 table 7 (prefixes as powers of 1000 here): 999.6 µs shown to three
+    # significant digits is 1.00 ms, never "1e+03 µs"; the unit is V for the MV case.
+    unit = "V" if text.endswith("V") else "s"
+    assert format_si(value, unit, digits) == text
+    assert "e+" not in format_si(value, unit, digits)

@@ -18,8 +18,8 @@ MIN_SAMPLES = 32
 
 # The result fields written to JSON and the store, in this order (issue #3 CLI contract).
 RESULT_FIELDS = ("verdict", "t_supply_s", "delay_s", "delay_ref", "rise_s", "settle_s", "overshoot_pct", "ring_hz",
-                 "damping",
-                 "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "isupply_final_a")
+                 "damping", "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v",
+                 "vsupply_at_valid_v", "isupply_final_a")
 
 
 @dataclass(frozen=True)
@@ -38,6 +38,7 @@ class StartupResult:
     vsupply_final_v: float | None
     ramp_v_per_s: float | None
     supply_at_start_v: float | None
+    vsupply_at_valid_v: float | None = None  # supply when the output crossed its 90 % level
     isupply_final_a: float | None = None  # settled supply current, when the capture records it
     # What delay_s and settle_s count from: the supply crossing its reference level ("supply"); without a
     # supply channel, a given supply-valid instant ("given"), the enable edge ("enable") or t = 0 ("trigger").
@@ -115,6 +116,7 @@ def _result(t, o, m: StartupMetrics, limits: Limits, *, fit: bool, supply_curren
         damping=step.damping if step else None, vout_final_v=m.output.final_v,
         vsupply_final_v=m.supply.final_v if m.supply is not None else None,
         ramp_v_per_s=m.ramp_v_per_s, supply_at_start_v=m.supply_at_start_v,
+        vsupply_at_valid_v=m.vsupply_at_valid_v,
         isupply_final_a=_final_level(supply_current_a), delay_ref=delay_ref, evidence=evidence, fit=step)
 
 

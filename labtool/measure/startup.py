@@ -12,7 +12,9 @@ Definitions (IEEE Std 181-2011 unless said otherwise; clause numbers from memory
 * ``t_supply_s``: the supply crosses its reference level (default 90 %); ``delay_s``: output's first
   90 % crossing minus ``t_supply_s``; ``settle_s``: from ``t_supply_s`` to the last entry into
   ±band % of the final level (bench practice, GUIDE §4); ``ramp_v_per_s``: supply 10–90 % slope;
-  ``supply_at_start_v``: supply when the output crosses its 10 % level.
+  ``supply_at_start_v``: supply when the output crosses its 10 % level; ``vsupply_at_valid_v``: supply
+  when the output crosses its 90 % level (on a slow ramp the output is up before the supply is valid,
+  the delay is then set by the ramp, and this supply voltage is the figure that says how early).
 """
 
 from __future__ import annotations
@@ -69,6 +71,7 @@ class StartupMetrics:
     delay_s: float | None
     rise_s: float | None
     supply_at_start_v: float | None
+    vsupply_at_valid_v: float | None
     settle_at_s: float | None
     settle_s: float | None
     settled: bool
@@ -178,7 +181,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
                   record_end_s=float(t[-1]))
     if not left_zero:
         return StartupMetrics(**common, reference=None, t10_at_s=None, t90_at_s=None, delay_s=None, rise_s=None,
-                              supply_at_start_v=None, settle_at_s=None, settle_s=None, settled=False,
+                              supply_at_start_v=None, vsupply_at_valid_v=None, settle_at_s=None, settle_s=None, settled=False,
                               overshoot_pct=None, peak_at_s=None, window=None)
     high = state_levels(output).high_v if tail_is_zero else out.final_v  # no settled level: the plateau
     ref = StateLevels(out.initial_v, high)
@@ -188,6 +191,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
     delay = t90 - t_supply if t90 is not None and t_supply is not None else None
     rise = t90 - t10 if t10 is not None and t90 is not None else None
     at_start = value_at(t, supply, t10) if t10 is not None and supply is not None else None
+    at_valid = value_at(t, supply, t90) if t90 is not None and supply is not None else None
     settle_at = settle = None
     settled = False
     overshoot = peak_at = window = None
@@ -200,7 +204,7 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
             window = _transition_window(t, t10, t90, settle_at if settled else None)
             overshoot, peak_at = _overshoot(t, output, window, t90, ref)
     return StartupMetrics(**common, reference=ref, t10_at_s=t10, t90_at_s=t90, delay_s=delay, rise_s=rise,
-                          supply_at_start_v=at_start, settle_at_s=settle_at, settle_s=settle, settled=settled,
+                          supply_at_start_v=at_start, vsupply_at_valid_v=at_valid, settle_at_s=settle_at, settle_s=settle, settled=settled,
                           overshoot_pct=overshoot, peak_at_s=peak_at, window=window)
 
 

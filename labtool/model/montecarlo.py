@@ -104,16 +104,17 @@ def no_failures() -> pd.DataFrame:
 
 
 def summarise(g: pd.DataFrame, failures: pd.DataFrame | None = None) -> dict:
-    """n, p_stuck and the delay distribution of one condition's samples; ``n_failed`` samples could
-    not be simulated (not in n, not in p_stuck)."""
-    delays = g.loc[~g["stuck"], "delay_s"].dropna().to_numpy(dtype=float)
-    q = (lambda x: float(np.quantile(delays, x))) if delays.size else (lambda x: None)  # noqa: E731
+    """n, p_stuck and the delay distribution of one condition's samples: the delays of samples whose
+    output came up and stayed, summarised as every set-up is (labtool.stats.setups); ``n_failed``
+    samples could not be simulated (not in n, not in p_stuck)."""
+    from labtool.stats.setups import counted, quantiles
+
+    q = quantiles(counted(g))
     counts = g["verdict"].value_counts()
     return {
         "n": int(len(g)), "p_stuck": float(g["stuck"].mean()) if len(g) else None, "n_stuck": int(g["stuck"].sum()),
-        "delay_median_s": q(0.5), "delay_p05_s": q(0.05), "delay_p95_s": q(0.95),
-        "delay_mean_s": float(delays.mean()) if delays.size else None,
-        "delay_std_s": float(delays.std(ddof=1)) if delays.size > 1 else None,
+        "delay_median_s": q.median, "delay_p05_s": q.p05, "delay_p95_s": q.p95,
+        "delay_mean_s": q.mean, "delay_std_s": q.std,
         "verdicts": {str(k): int(v) for k, v in counts.items()},
         "n_failed": 0 if failures is None else int(len(failures)),
     }

@@ -21,23 +21,26 @@ import numpy as np
 import pandas as pd
 
 from labtool import __version__
-from labtool.errors import LabtoolError, StoreError, UsageError
+from labtool.atomic import write_atomic
+from labtool.display import format_pvalue
+from labtool.errors import LabtoolError, UsageError
 from labtool.execute import Scheduler, run_batch
+from labtool.measure.limits import Limits
 from labtool.report import html as report_html
 from labtool.report import plots
-from labtool.atomic import write_atomic
 from labtool.report.traces import Trace, envelope, trace_from_capture
 from labtool.report.workbook import write_workbook
-from labtool.stats.compare import comparison_table, compare, mixed_prediction
-from labtool.stats.lot import lot_statistics, lot_table
+from labtool.stats.compare import comparison_table, compare
+from labtool.stats.lot import lot_statistics, lot_table, setup_table
+from labtool.stats.setups import SETUP_KEYS, counted, setup_tuple, split_setups
+from labtool.stats.sources import measured_limits
 from labtool.stats.table import CAME_UP, groups, parse_keys, part_labels
 from labtool.stats.triage import triage
 from labtool.units import format_si
 
-MAX_OVERLAYS = 4  # ramp conditions drawn per group
+MAX_OVERLAYS = 4  # set-ups whose waveforms are drawn per group
 MAX_TRACES = 120  # traces per overlay; failures first, then starts evenly spread
 MAX_HTML_ROWS = 2000
-SETUP = ("ramp_s", "temperature_c")
 RETURNED = "returned"
 
 
@@ -70,13 +73,12 @@ class _Job:
     records: tuple[dict, ...] = field(default=(), repr=False)  # catalog records of the traces to draw
     baseline_records: tuple[dict, ...] = field(default=(), repr=False)
     baseline_rows: pd.DataFrame | None = field(default=None, repr=False)
-    predicted_delays_s: np.ndarray | None = field(default=None, repr=False)  # the group's mix of set-ups
-    predicted_by_ramp: Mapping | None = field(default=None, repr=False)  # ramp_s → delays at that ramp
+    predicted_by_setup: Mapping | None = field(default=None, repr=False)  # set-up tuple → predicted delays
     predictions: pd.DataFrame | None = field(default=None, repr=False)
     spec_max_delay_s: float | None = None
     triage_rows: pd.DataFrame | None = field(default=None, repr=False)  # the part's lot, for triage
     design: Any = field(default=None, repr=False)
-    group_col: str | None = None
+    supply_valid: str = ""  # what "supply valid" meant for these measurements, for the captions
 
 
 def slug(text: str) -> str:
@@ -107,32 +109,47 @@ def render_job(job: _Job) -> Rendered:
     return Rendered(tuple(out), tuple(hypotheses))
 
 
+def supply_valid_text(limits: Limits) -> str:
+    """What "supply valid" was for these measurements: "supply at 90 % of its final level" or "supply at 1.62 V"."""
+    kind, value = limits.supply_reference()
+    return f"supply at {100 * value:g} % of its final level" if kind == "fraction" else f"supply at {format_si(value, 'V')}"
+
+
 def _overview_plots(job: _Job):
     return [(plots.delay_vs_conditions(job.rows, title="Startup delay against ramp time and temperature",
-                                       group_col=job.group_col, predicted=job.predictions),
-             "Every capture with a delay as a point; per condition the median and p05–p95; stuck captures "
-             "counted along the top" + ("; dashed: the model's median." if job.predictions is not None else "."))]
+                                       predicted=job.predictions),
+             "Every capture whose output came up and stayed as a point; per set-up the median and p05–p95; stuck "
+             "captures counted along the top; below 0 the output was ready before supply valid "
+             f"({job.supply_valid})" + ("; dashed: the model's median." if job.predictions is not None else "."))]
 
 
 def _group_plots(job: _Job):
     rows = job.rows
-    out = [(plots.delay_histogram(rows, title=f"{job.label}: startup delay", spec_max_delay_s=job.spec_max_delay_s,
-                                  predicted_delays_s=job.predicted_by_ramp),
-            "Startup delay from supply valid (90 % of final output level); failures by verdict beside it.")]
-    for ramp, sub_records, n_total in _overlay_sets(job):
+    out = [(plots.delay_histogram(rows, title=job.label, spec_max_delay_s=job.spec_max_delay_s,
+                                  predicted_delays_s=job.predicted_by_setup),
+            f"Startup delay from supply valid ({job.supply_valid}) to the output's 90 % crossing, one panel per "
+            "set-up, of the captures whose output came up and stayed; a negative delay: ready before supply "
+            "valid. Failures by verdict in the last panel.")]
+    for setup, sub_records, n_total in _overlay_sets(job):
         traces = _load_traces(job.root, sub_records, rows)
         if traces:
-            what = "ramp not recorded" if ramp is None else f"ramp {format_si(ramp, 's')}"
+            what = plots.setup_title(setup)
             out.append((plots.waveform_overlay(traces, title=f"{job.label} · {what}",
                                                note=f"{len(traces)} of {n_total} captures"),
-                        f"Reference output of {len(traces)} captures ({what}), aligned on supply valid: "
-                        "median bold over the p05–p95 band; ▲ supply valid, ● 90 % crossing, ■ settled."))
+                        f"Reference output of {len(traces)} captures ({what}), aligned on supply valid: median bold "
+                        f"over the p05–p95 band; ▲ supply valid ({job.supply_valid}), ● output at 90 % of its "
+                        "final level, ■ settled."))
     if {"die_x", "die_y"} <= set(rows.columns) and rows[["die_x", "die_y"]].notna().all(axis=1).any():
+        shown = plots.setup_title(plots.map_setup(rows) or {})
         out.append((plots.wafer_map(rows, title=job.label),
-                    "By die position: median startup delay, and the most severe verdict of the die."))
-    if job.predicted_delays_s is not None and len(job.predicted_delays_s):
-        out.append((plots.qq_plot(rows["delay_s"], job.predicted_delays_s, title=f"{job.label}: measured vs model"),
-                    "Quantiles of the measured delays against the model's at the same set-ups."))
+                    f"By die position: median startup delay at {shown} (the set-up with the most delays), and the "
+                    "most severe verdict of the die over every set-up."))
+    pairs = [(plots.setup_title(setup), counted(sub), job.predicted_by_setup.get(setup_tuple(setup)))
+             for setup, sub in split_setups(rows)] if job.predicted_by_setup else []
+    pairs = [p for p in pairs if p[2] is not None and len(p[2])]
+    if pairs:
+        out.append((plots.qq_plot(pairs, title=f"{job.label}: measured vs model"),
+                    "Quantiles of the measured delays against the model's, set-up by set-up (one series each)."))
     return out
 
 
@@ -170,19 +187,17 @@ def triage_ramps(rows: pd.DataFrame, limit: int = 3) -> list:
 
 
 def _overlay_sets(job: _Job):
-    """(ramp, records, captures at that ramp) for up to MAX_OVERLAYS ramp conditions."""
+    """(set-up, records, captures at that set-up) for up to MAX_OVERLAYS set-ups, spread over them."""
     if job.root is None or not job.records:
         return []
-    rows = job.rows.set_index("capture_id")
     by_id = {r["capture_id"]: r for r in job.records}
-    ramps = rows["ramp_s"] if "ramp_s" in rows.columns else pd.Series(np.nan, index=rows.index)
-    values = sorted(set(ramps.dropna())) + ([None] if ramps.isna().any() else [])
-    if len(values) > MAX_OVERLAYS:
-        values = [values[i] for i in np.linspace(0, len(values) - 1, MAX_OVERLAYS).round().astype(int)]
+    facets = list(split_setups(job.rows))
+    if len(facets) > MAX_OVERLAYS:
+        facets = [facets[i] for i in np.linspace(0, len(facets) - 1, MAX_OVERLAYS).round().astype(int)]
     out = []
-    for ramp in values:
-        ids = list(ramps.index[ramps.isna()] if ramp is None else ramps.index[ramps == ramp])
-        out.append((ramp, [by_id[i] for i in pick_traces(rows.loc[ids, "verdict"]) if i in by_id], len(ids)))
+    for setup, rows in facets:
+        picked = pick_traces(rows.set_index("capture_id")["verdict"])
+        out.append((setup, [by_id[i] for i in picked if i in by_id], len(rows)))
     return out
 
 
@@ -273,19 +288,22 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
             raise UsageError(f"{where}no measurements yet; run `labtool measure` on the campaign first")
         limits_key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns else None
         limits = camp.limits(limits_key) if camp is not None and limits_key else {}
+        measured_with = measured_limits(camp, table) if camp is not None else Limits()
         if spec_max_delay_s is None and limits.get("max_delay_s") is not None:
             spec_max_delay_s = float(limits["max_delay_s"])
-        stats = lot_table(lot_statistics(table, by, spec_max_delay_s))
+        stats = lot_statistics(table, by, spec_max_delay_s)
         design = _load_design(design)
         if design is not None and predictions is None:
             from labtool.stats.predictions import predictions_from_model
 
-            predictions = predictions_from_model(design, table, n=model_samples, seed=seed, scheduler=scheduler)
+            predictions = predictions_from_model(design, table, n=model_samples, seed=seed, scheduler=scheduler,
+                                                 limits=measured_with)
         model_failed = [(f"Monte Carlo at ramp_s={r:g}, temperature_c={t:g}", why)
                         for (r, t), why in (predictions.attrs.get("failed", []) if predictions is not None else [])]
-        comparisons = comparison_table(compare(table, predictions, by)) if predictions is not None else None
+        comparisons = compare(table, predictions, by) if predictions is not None else None
         returned = sorted(set(_returned_parts(table)) | set(parts))
-        jobs = _jobs(table, by, root, camp, predictions, spec_max_delay_s, returned, design)
+        jobs = _jobs(table, by, root, camp, predictions, spec_max_delay_s, returned, design,
+                     supply_valid_text(measured_with))
     finally:
         if camp is not None and camp is not campaign:
             camp.close()
@@ -299,8 +317,9 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
              "campaign": root or "(measurement table)", "grouped_by": ",".join(by), "limits_key": limits_key,
              "spec_max_delay_s": spec_max_delay_s, "model": getattr(design, "name", None) if design is not None else None,
              "model_samples_per_setup": model_samples if design is not None else None, "seed": seed if design is not None else None}
-    workbook = write_workbook(out / "report.xlsx", table, summary=stats, comparison=comparisons, limits=limits,
-                              about=about)
+    workbook = write_workbook(out / "report.xlsx", table, summary=lot_table(stats),
+                              comparison=comparison_table(comparisons) if comparisons is not None else None,
+                              limits=limits, about=about)
     sections = _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limits)
     page = report_html.render_html(title or "Startup report", _subtitle(table, by, about), sections)
     html_path = out / "report.html"
@@ -309,34 +328,31 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
     return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
 
 
-def _setup_cells(rows: pd.DataFrame) -> list[tuple]:
-    return [tuple(r) for r in rows[list(SETUP)].itertuples(index=False)]
-
-
-def _predicted_for(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> np.ndarray | None:
-    """The model's delays at this group's set-ups, in the group's mix of set-ups (see stats.compare)."""
-    if predictions is None or not set(SETUP) <= set(rows.columns) or not set(SETUP) <= set(predictions.columns):
+def _predicted_by_setup(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> dict | None:
+    """The predicted delays at each of the group's set-ups (set-up tuple → counted delays), matched on
+    the set-up columns both tables have."""
+    if predictions is None:
         return None
-    pred_by_cell = {cell: part for cell, part in predictions.groupby(list(SETUP), sort=False)}
-    counts = pd.Series(_setup_cells(rows.dropna(subset=list(SETUP)))).value_counts()
-    measured = {cell: int(n) for cell, n in counts.items() if cell in pred_by_cell}
-    if not measured:
-        return None
-    delays, _ = mixed_prediction(pred_by_cell, measured)
-    return delays
+    cols = [k for k in SETUP_KEYS if k in predictions.columns and k in rows.columns]
+    out = {}
+    for setup, _ in split_setups(rows):
+        at = np.ones(len(predictions), bool)
+        for k in cols:
+            values = pd.to_numeric(predictions[k], errors="coerce").to_numpy(np.float64)
+            at &= np.isclose(values, np.nan if setup[k] is None else float(setup[k]), rtol=1e-9, atol=0.0)
+        if at.any():
+            out[setup_tuple(setup)] = counted(predictions[at])
+    return out
 
 
-def _jobs(table, by, root, camp, predictions, spec, returned, design) -> list[_Job]:
-    common = dict(root=root, spec_max_delay_s=spec)
-    jobs = [_Job("overview", "Overview", "overview", rows=table, predictions=predictions, group_col=by[0], **common)]
+def _jobs(table, by, root, camp, predictions, spec, returned, design, supply_valid: str) -> list[_Job]:
+    common = dict(root=root, spec_max_delay_s=spec, supply_valid=supply_valid)
+    jobs = [_Job("overview", "Overview", "overview", rows=table, predictions=predictions, **common)]
     for key, rows in groups(table, by, "--by"):
         label = group_label(key)
         records = tuple(camp.records(list(rows["capture_id"]))) if camp is not None else ()
-        by_ramp = None
-        if predictions is not None and "ramp_s" in rows.columns:
-            by_ramp = {r: _predicted_for(rows[rows["ramp_s"] == r], predictions) for r in rows["ramp_s"].dropna().unique()}
         jobs.append(_Job("group", label, slug(label), rows=rows, records=records,
-                         predicted_delays_s=_predicted_for(rows, predictions), predicted_by_ramp=by_ramp, **common))
+                         predicted_by_setup=_predicted_by_setup(rows, predictions), **common))
     labels = part_labels(table)
     for part in returned:
         mine = table[labels == part]
@@ -360,15 +376,19 @@ def _jobs(table, by, root, camp, predictions, spec, returned, design) -> list[_J
 
 
 # -- HTML sections ------------------------------------------------------------------------------
-SUMMARY_COLUMNS = ("n", "n_parts", "n_started", "n_stuck", "n_slow", "n_ringing", "n_recollapse", "n_wrong_level",
-                   "n_incomplete", "n_no_supply", "stuck_ppm_ucl95", "delay_median_s", "delay_p05_s", "delay_p95_s",
-                   "cpk", "delay_fit_distribution")
-COMPARISON_COLUMNS = ("measured_delay_median_s", "predicted_delay_median_s", "median_ratio", "ks_pvalue", "ad_pvalue",
-                      "measured_p_stuck", "predicted_p_stuck", "stuck_pvalue", "finding")
+GROUP_COLUMNS = ("n_captures", "n_parts", "n_parts_stuck", "parts_stuck_upper95", "parts_stuck_ppm_upper95",
+                 "start_stuck_rate", "start_stuck_upper95", "n_started", "n_ringing", "n_slow_start", "n_wrong_level",
+                 "n_incomplete", "n_recollapse", "n_stuck_at_zero", "n_no_supply", "n_setups", "intermittent_parts")
+SETUP_COLUMNS = ("ramp_s", "temperature_c", "vdd_v", "n_captures", "n_parts_stuck", "delay_n", "delay_median_s",
+                 "delay_p05_s", "delay_p95_s", "output_valid", "vsupply_at_valid_median_v", "delay_mean_s", "delay_std_s",
+                 "delay_fit_distribution", "delay_fit_ad_pvalue", "cpk", "outliers")
+COMPARISON_COLUMNS = ("n_measured", "n_setups", "measured_n_parts", "measured_n_parts_stuck", "predicted_n_parts",
+                      "predicted_p_part_stuck", "stuck_pvalue", "finding")
+COMPARISON_SETUP_COLUMNS = ("ramp_s", "temperature_c", "vdd_v", "n_measured", "n_parts", "measured_delay_median_s",
+                            "predicted_delay_median_s", "delay_shift_s", "ks_pvalue", "ad_pvalue", "measured_n_stuck",
+                            "predicted_n_stuck", "finding")
 FAILURE_COLUMNS = ("capture_id", "lot", "wafer", "part", "temperature_c", "ramp_s", "repeat", "verdict", "delay_s",
                    "settle_s", "overshoot_pct", "vout_final_v", "source_path")
-
-
 def _columns(frame: pd.DataFrame, by: Sequence[str], wanted: Sequence[str]) -> pd.DataFrame:
     return frame[[c for c in (*by, *wanted) if c in frame.columns]]
 
@@ -382,32 +402,36 @@ def _pct(k: int, n: int) -> str:
     return f"{k} ({100.0 * k / n:.1f} %)" if n else str(k)
 
 
-def _delay_facts(s: Mapping[str, Any], rows: pd.DataFrame) -> list[tuple[str, str]]:
-    """Median and p05–p95 of the delay: per ramp time when the group has several (pooled over ramps
-    that differ by decades, one median would describe no set-up at all)."""
-    spans = [("", s["delay_median_s"], s["delay_p05_s"], s["delay_p95_s"])]
-    if "ramp_s" in rows.columns and rows["ramp_s"].nunique() > 1:
-        spans = [(f" · ramp {format_si(r.ramp_s, 's')}", r.delay_median_s, r.delay_p05_s, r.delay_p95_s)
-                 for r in plots.condition_spread(rows, "ramp_s").itertuples()]
-    out = []
-    for where, med, lo, hi in spans:
-        med, lo, hi = (report_html.display("delay_s", v) for v in (med, lo, hi))
-        out.append((f"median delay{where}", f"{med} (p05–p95 {lo} to {hi})"))
-    return out
+def readable_rows(frame: pd.DataFrame) -> pd.DataFrame:
+    """A summary frame as people read it: p-values read at a table end shown as bounds ("≥ 0.25"),
+    a set-up's output labelled ready before or after supply valid, and the supply at which it became
+    valid shown where it was ready before (there the delay is set by the ramp)."""
+    frame = frame.copy()
+    for p_col, bound_col in (("delay_fit_ad_pvalue", "delay_fit_ad_pvalue_bound"), ("ad_pvalue", "ad_pvalue_bound")):
+        if p_col in frame.columns and bound_col in frame.columns:
+            frame[p_col] = [format_pvalue(p, b) if isinstance(b, str) else p
+                            for p, b in zip(frame[p_col], frame[bound_col])]
+    if "ready_before_supply_valid" in frame.columns:
+        ready = frame["ready_before_supply_valid"].map(lambda r: None if r is None or pd.isna(r) else bool(r))
+        frame["output_valid"] = ready.map(
+            lambda r: None if r is None else "ready before supply valid" if r else "after supply valid")
+        if "vsupply_at_valid_median_v" in frame.columns:
+            frame["vsupply_at_valid_median_v"] = frame["vsupply_at_valid_median_v"].where(ready.eq(True), None)
+    return frame
 
 
-def _facts(s: Mapping[str, Any], rows: pd.DataFrame) -> list[tuple[str, str]]:
-    facts = [("captures", str(s["n"])), ("parts", str(s["n_parts"])), ("started", _pct(s["n_started"], s["n"])),
-             ("stuck at zero", _pct(s["n_stuck"], s["n"])),
-             ("stuck, 95 % upper bound", report_html.display("stuck_ppm_ucl95", s["stuck_ppm_ucl95"])),
-             *_delay_facts(s, rows)]
-    if s.get("cpk") is not None and pd.notna(s.get("cpk")):
-        facts.append(("Cpk (delay spec)", f"{s['cpk']:.2f}"))
-    if s.get("delay_fit_distribution"):
-        facts.append(("delay law", str(s["delay_fit_distribution"])))
-    outliers = [o for o in str(s.get("outliers") or "").split(",") if o]
-    intermittent = [p for p in str(s.get("intermittent_parts") or "").split(",") if p]
-    facts += [("delay outliers", str(len(outliers))), ("intermittent parts", ", ".join(intermittent) or "none")]
+def _facts(g) -> list[tuple[str, str]]:
+    """A group's tiles: its yield figures over parts and starts (delays are per set-up, in its table)."""
+    rate = g.start_stuck
+    facts = [("captures", str(g.n_captures)), ("parts", str(g.n_parts)), ("set-ups", str(len(g.setups))),
+             ("parts with a stuck start", _pct(g.n_parts_stuck, g.n_parts_tested)),
+             ("parts stuck, 95 % upper bound", report_html.display("parts_stuck_upper95", g.parts_stuck_upper95)),
+             ("stuck starts", _pct(rate.k, rate.n)),
+             ("per start, 95 % upper bound", report_html.display("start_stuck_upper95", rate.upper95)),
+             ("started", _pct(g.counts["n_started"], g.n_captures))]
+    facts += [(report_html.display("verdict", k.removeprefix("n_")), str(n)) for k, n in g.counts.items()
+              if n and k != "n_started"]
+    facts.append(("intermittent parts", ", ".join(g.intermittent_parts) or "none"))
     return facts
 
 
@@ -416,27 +440,39 @@ def _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limi
         files = rendered[label].files if label in rendered else ()
         return [report_html.Picture(caption, png, alt=f"{label}: {caption}") for _, caption, png in files]
 
-    findings = {}
-    if comparisons is not None:
-        findings = {group_label({k: r[k] for k in by}): r["finding_text"] for _, r in comparisons.iterrows()}
+    findings = {group_label(c.group): c.finding_text for c in comparisons or ()}
     verdicts = table["verdict"].value_counts()
     labels = part_labels(table)
     overview_facts = [("captures", str(len(table))), ("groups", str(len(stats))),
                       ("parts", str(labels[labels != ""].nunique()))]
     overview_facts += [(report_html.display("verdict", v), str(int(n))) for v, n in verdicts.items()]
-    tables = [report_html.Table("Per group (click a column head to sort)", _columns(stats, by, SUMMARY_COLUMNS))]
+    group_rows = pd.DataFrame.from_records([g.to_json_dict() for g in stats])
+    setup_rows = readable_rows(setup_table(stats))
+    tables = [report_html.Table("Per group: parts and starts (click a column head to sort)",
+                                _columns(group_rows.assign(intermittent_parts=group_rows["intermittent_parts"].map(
+                                    ", ".join)), by, GROUP_COLUMNS)),
+              report_html.Table("Per set-up: startup delays of the captures that came up and stayed",
+                                _columns(setup_rows, by, SETUP_COLUMNS))]
     if comparisons is not None:
-        tables.append(report_html.Table("Measured against the model", _columns(comparisons, by, COMPARISON_COLUMNS)))
+        compared = comparison_table(comparisons)
+        tables.append(report_html.Table("Measured against the model: stuck at zero over parts",
+                                        _columns(compared[compared["row"] == "group"], by, COMPARISON_COLUMNS)))
+        tables.append(report_html.Table("Measured against the model: delays per set-up",
+                                        _columns(readable_rows(compared[compared["row"] == "setup"]), by,
+                                                 COMPARISON_SETUP_COLUMNS)))
     text = ""
     if failed:
         text = "Not drawn: " + "; ".join(f"{what}: {why}" for what, why in failed)
     sections = [report_html.Section("s-overview", "Overview", facts=overview_facts, pictures=pictures("Overview"),
                                     tables=tables, text=text, nav_group="overview")]
-    stats_by_label = {group_label({k: s[k] for k in by}): s for _, s in stats.iterrows()}
+    stats_by_label = {group_label(g.group): g for g in stats}
     for job in (j for j in jobs if j.kind == "group"):
-        s = stats_by_label[job.label]
-        sections.append(report_html.Section(report_html.anchor_for("g " + job.label), job.label, facts=_facts(s, job.rows),
-                                            finding=findings.get(job.label, ""), pictures=pictures(job.label)))
+        g = stats_by_label[job.label]
+        per_setup = readable_rows(setup_table([g]))
+        sections.append(report_html.Section(
+            report_html.anchor_for("g " + job.label), job.label, facts=_facts(g), finding=findings.get(job.label, ""),
+            pictures=pictures(job.label),
+            tables=[report_html.Table("Per set-up", _columns(per_setup, (), SETUP_COLUMNS))]))
     failures = table[table["verdict"] != "started"]
     shown = _columns(failures, (), FAILURE_COLUMNS).head(MAX_HTML_ROWS)
     note = f"first {MAX_HTML_ROWS} of {len(failures)}; every one is in report.xlsx" if len(failures) > MAX_HTML_ROWS else ""

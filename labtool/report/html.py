@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from labtool.report import style
-from labtool.units import format_si
+from labtool.display import format_cell
 
 
 @dataclass(frozen=True)
@@ -58,34 +58,23 @@ def anchor_for(text: str) -> str:
     return "s-" + (re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower() or "x")
 
 
-# Display units per column-name suffix (compound first); values stay SI in data-v for sorting.
-_DISPLAY_UNITS = (("_v_per_s", "V/s"), ("_pct", "%"), ("_hz", "Hz"), ("_a", "A"), ("_v", "V"), ("_s", "s"))
-
-
 def display(column: str, value: Any) -> str:
-    """A cell as text: SI prefixes for unit-suffixed columns, verdict labels, '—' for missing."""
-    if value is None or value is pd.NA or (isinstance(value, float) and not math.isfinite(value)):
-        return "—"
-    if isinstance(value, np.generic):
-        value = value.item()
+    """A cell as text: the column's unit with SI prefixes (labtool.display), verdict labels, '—' for missing."""
     if column == "verdict" and str(value) in style.VERDICT_STYLES:
         return style.VERDICT_STYLES[str(value)].label
-    if isinstance(value, float):
-        if column.endswith("_c"):
-            return f"{value:g} °C"
-        if column.endswith("_ppm") or column.endswith("_ppm_ucl95"):
-            return f"{value:,.0f} ppm" if abs(value) >= 1000 else f"{value:.3g} ppm"
-        for suffix, unit in _DISPLAY_UNITS:
-            if column.endswith(suffix):
-                return f"{value:.4g} %" if unit == "%" else format_si(value, unit, digits=4)
-        return f"{value:.4g}"
-    return str(value)
+    return format_cell(column, value, digits=4)
+
+
+_BOUND_TEXT = re.compile(r"^[≥≤] ?([-+0-9.eE]+)$")
 
 
 def _sort_key(value: Any) -> str:
-    """The data-v attribute: the raw number for numeric cells (sorted numerically), empty otherwise."""
+    """The data-v attribute: the raw number for numeric cells (sorted numerically), empty otherwise;
+    a p-value shown as a bound ("≥ 0.25") sorts by its number."""
     if isinstance(value, np.generic):
         value = value.item()
+    if isinstance(value, str) and _BOUND_TEXT.match(value):
+        return repr(float(_BOUND_TEXT.match(value).group(1)))
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         return ""
     return repr(float(value)) if math.isfinite(value) else ""
@@ -225,7 +214,7 @@ nav { position: fixed; top: 0; left: 0; bottom: 0; width: 15.5rem; overflow-y: a
       background: #fff; border-right: 1px solid var(--grid); font-size: 0.85rem; }
 nav .brand { font-weight: bold; font-size: 1.1rem; margin: 0 0 0.8rem; color: var(--accent);
              border-left: 4px solid var(--accent); padding-left: 0.5rem; }
-nav h3 { font-size: 0.72rem; text-transform: uppercase; letter-spacing: 0.08em; color: var(--slate);
+nav h3 { font-size: 0.78rem; font-weight: bold; letter-spacing: 0.04em; color: var(--slate);
          margin: 1rem 0 0.3rem; }
 nav ul { list-style: none; margin: 0; padding: 0; }
 nav li a { display: block; padding: 0.18rem 0.4rem; color: var(--ink); text-decoration: none; border-radius: 3px; }
@@ -238,7 +227,8 @@ h2::before { content: ""; display: inline-block; width: 0.55rem; height: 0.9rem;
 dl.facts { display: flex; flex-wrap: wrap; gap: 0.5rem; margin: 0 0 0.8rem; }
 dl.facts div { background: #fff; border: 1px solid var(--grid); border-top: 3px solid var(--slate);
                padding: 0.35rem 0.7rem; min-width: 8.5rem; }
-dl.facts dt { font-size: 0.7rem; text-transform: uppercase; letter-spacing: 0.06em; color: var(--slate); }
+/* labels keep their case: upper-casing turns "µs" into "ΜS" (Greek capital mu), read as ms */
+dl.facts dt { font-size: 0.75rem; letter-spacing: 0.02em; color: var(--slate); }
 dl.facts dd { margin: 0; font-size: 1.05rem; font-weight: bold; font-variant-numeric: tabular-nums; }
 p.finding { background: #fff; border-left: 4px solid var(--accent); padding: 0.5rem 0.8rem; margin: 0 0 1rem; }
 p.note, p.legend { color: var(--slate); font-size: 0.85rem; }

@@ -23,7 +23,11 @@ from matplotlib.patches import Circle, Patch, Rectangle
 from matplotlib import rc_context
 from matplotlib.lines import Line2D
 
+from labtool.display import format_cell
 from labtool.report import style
+from labtool.stats.setups import (SETUP_KEYS, counted, delay_mask, quantiles, setup_keys, setup_tuple,
+                                  split_setups)
+from labtool.stats.table import STUCK
 from labtool.units import format_si
 from labtool.report.traces import Envelope, Trace, envelope
 
@@ -103,77 +107,105 @@ def _bin_edges(measured: np.ndarray, pooled: np.ndarray, bins) -> np.ndarray:
     return np.linspace(lo, hi, bins + 1)
 
 
-def _facets(table: pd.DataFrame, facet: str | None, max_facets: int) -> list[tuple[Any, pd.DataFrame]]:
-    """(value, rows) per facet value, up to ``max_facets`` spread over the sorted values; one facet
-    (value None) holding every row when the column is absent or empty."""
-    if not facet or facet not in table.columns or table[facet].isna().all():
-        return [(None, table)]
-    values = sorted(table[facet].dropna().unique())
-    if len(values) > max_facets:
-        values = [values[i] for i in np.linspace(0, len(values) - 1, max_facets).round().astype(int)]
-    return [(v, table[table[facet] == v]) for v in values]
+MAX_SETUP_PANELS = 12  # histogram panels per group; more set-ups are spread over this many
+PANEL_COLUMNS = 3
+
+
+def setup_title(setup: Mapping[str, Any]) -> str:
+    """``ramp 10 µs · -40 °C · 1.8 V``: a set-up as the report names it (unknown keys left out)."""
+    words = {"ramp_s": lambda v: f"ramp {format_si(float(v), 's')}", "temperature_c": lambda v: f"{float(v):g} °C",
+             "vdd_v": lambda v: f"supply {format_si(float(v), 'V')}"}
+    return " · ".join(words[k](v) for k, v in setup.items() if k in words and v is not None) or "set-up unknown"
+
+
+def _setup_facets(table: pd.DataFrame, max_panels: int) -> tuple[list[tuple[dict, pd.DataFrame]], int]:
+    """(set-up, rows) per set-up, at most ``max_panels`` spread over the sorted set-ups; and the total."""
+    facets = list(split_setups(table))
+    if len(facets) > max_panels:
+        picked = np.linspace(0, len(facets) - 1, max_panels).round().astype(int)
+        return [facets[i] for i in picked], len(facets)
+    return facets, len(facets)
 
 
 def delay_histogram(table: pd.DataFrame, *, title: str, spec_max_delay_s: float | None = None,
-                    predicted_delays_s=None, bins: int | Sequence[float] | None = None, facet: str | None = "ramp_s",
-                    max_facets: int = 4) -> Plot:
-    """Histogram of the group's startup delays, one panel per supply ramp time (delays at different
-    ramps differ by orders of magnitude, and are negative when the reference is up before the supply
-    is valid), with the spec limit, the model's predicted distribution (scaled to the panel's count)
-    and, beside them, the count of every failure verdict.
+                    predicted_delays_s=None, bins: int | Sequence[float] | None = None,
+                    max_panels: int = MAX_SETUP_PANELS) -> Plot:
+    """Histogram of the group's startup delays, one panel per set-up (ramp × temperature × supply:
+    delays at different set-ups differ by orders of magnitude, and are negative when the output is
+    ready before the supply is valid), with the spec limit, the model's predicted distribution
+    (scaled to the panel's count) and, in the last panel, the count of every failure verdict. Only
+    captures whose output came up and stayed are counted (labtool.stats.setups).
 
-    ``predicted_delays_s``: one array (every panel) or a mapping facet value → array.
-    ``bins``: a count or explicit edges in seconds; by default numpy's "auto" rule, 6 to 40 bins.
+    ``predicted_delays_s``: one array (every panel) or a mapping set-up tuple (ramp_s, temperature_c,
+    vdd_v, as :func:`labtool.stats.setups.setup_tuple` gives it) → array.
+    ``bins``: a count or explicit edges in seconds; by default numpy's "auto" rule, 6 to 60 bins.
     """
     with _styled():
-        facets = _facets(table, facet, max_facets)
-        fig = _figure((9.0, 1.0 + 2.9 * len(facets)))
-        grid = fig.add_gridspec(len(facets), 2, width_ratios=(3.2, 1.25))
+        facets, total = _setup_facets(table, max_panels)
+        cells = len(facets) + 1
+        ncols = min(PANEL_COLUMNS, cells)
+        nrows = math.ceil(cells / ncols)
+        fig = _figure((4.2 * ncols, 0.7 + 3.0 * nrows))
+        grid = fig.add_gridspec(nrows, ncols)
         panels = []
-        for row, (value, rows) in enumerate(facets):
-            predicted = predicted_delays_s.get(value) if isinstance(predicted_delays_s, Mapping) else predicted_delays_s
-            ax = fig.add_subplot(grid[row, 0])
-            what = title if value is None else f"{title} · ramp {format_si(float(value), 's')}"
-            panels.append({"facet": value, **_histogram_panel(ax, rows, what, spec_max_delay_s, predicted, bins)})
-        side = fig.add_subplot(grid[: min(2, len(facets)), 1])  # beside the first panels, bars kept slim
+        for i, (setup, rows) in enumerate(facets):
+            key = setup_tuple(setup)
+            predicted = predicted_delays_s.get(key) if isinstance(predicted_delays_s, Mapping) else predicted_delays_s
+            ax = fig.add_subplot(grid[i // ncols, i % ncols])
+            panels.append({"setup": setup, **_histogram_panel(ax, rows, setup_title(setup), spec_max_delay_s,
+                                                              predicted, bins)})
+        side = fig.add_subplot(grid[len(facets) // ncols, len(facets) % ncols])
         verdict_counts = _verdict_counts(table.get("verdict", []))
         _verdict_bars(side, verdict_counts)
+        shown = f" ({len(facets)} of {total} set-ups shown)" if total > len(facets) else ""
+        fig.suptitle(f"{title}: startup delay by set-up{shown}", x=0.01, ha="left", fontsize=11)
     return Plot("delay_histogram", fig, {"panels": panels, "verdict_counts": verdict_counts,
-                                         "spec_max_delay_s": spec_max_delay_s})
+                                         "spec_max_delay_s": spec_max_delay_s, "n_setups": total})
 
 
 def _histogram_panel(ax, rows: pd.DataFrame, title: str, spec_max_delay_s, predicted_delays_s, bins) -> dict:
-    measured = _finite_values(rows.get("delay_s", []))
+    measured = counted(rows)
     predicted = _finite_values([] if predicted_delays_s is None else predicted_delays_s)
-    pooled = np.concatenate([measured, predicted, [] if spec_max_delay_s is None else [spec_max_delay_s]])
+    data = np.concatenate([measured, predicted])
+    # the spec widens the axis only when it is near the delays; far beyond them the legend names it
+    spec_shown = spec_max_delay_s is not None and (not data.size or spec_max_delay_s <= 2 * np.abs(data).max())
+    pooled = np.concatenate([data, [spec_max_delay_s] if spec_shown else []])
     edges = _bin_edges(measured, pooled, bins)
     counts, _ = np.histogram(measured, edges)
     predicted_counts = None
     if predicted.size:
         predicted_counts = np.histogram(predicted, edges)[0] / predicted.size * max(measured.size, 1)
-    factor, unit = time_scale(np.concatenate([measured, predicted]))
+    factor, unit = time_scale(data)
+    if edges[0] < 0:  # a negative delay: the output was up before the supply was valid
+        ax.axvspan(edges[0] / factor, min(0.0, edges[-1]) / factor, color=style.INKS.band, alpha=0.35, linewidth=0,
+                   gid="before_supply_valid", label="ready before supply valid")
     ax.bar(edges[:-1] / factor, counts, width=np.diff(edges) / factor, align="edge", color=style.INKS.bars,
            edgecolor=style.INKS.ink, linewidth=0.6, label="measured", gid="measured")
     if predicted_counts is not None:
         ax.stairs(predicted_counts, edges / factor, color=style.INKS.ink, linewidth=2.0, linestyle="--",
-                  label=f"model ({predicted.size} samples, scaled)", gid="predicted")
-    if spec_max_delay_s is not None:
+                  label=f"model ({predicted.size}, scaled)", gid="predicted")
+    if spec_shown:
         ax.axvline(spec_max_delay_s / factor, color=style.INKS.accent, linestyle="-.", linewidth=1.6, gid="spec",
-                   label=f"spec max {spec_max_delay_s / factor:.4g} {unit}")
-    ax.set_xlabel(f"startup delay from supply valid [{unit}]")
+                   label=f"spec max {format_si(spec_max_delay_s, 's', 4)}")
+    elif spec_max_delay_s is not None:
+        ax.plot([], [], " ", label=f"spec max {format_si(spec_max_delay_s, 's', 4)} (off scale)")
+    ax.set_xlabel(f"delay from supply valid [{unit}]")
     ax.set_ylabel("captures")
     ax.yaxis.get_major_locator().set_params(integer=True)
-    ax.set_title(title, fontsize=10)
+    ax.set_title(title, fontsize=9.5, loc="left")
     if measured.size:
         p05, p50, p95 = np.percentile(measured, [5, 50, 95])
-        ax.text(0.99, 0.97, f"n = {measured.size} with a delay\nmedian {p50 / factor:.3g} {unit}\n"
-                            f"p05–p95 {p05 / factor:.3g} to {p95 / factor:.3g} {unit}",
-                transform=ax.transAxes, ha="right", va="top", fontsize=8, color=style.INKS.slate,
-                bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
+        lines = [f"n = {measured.size}", f"median {format_si(p50, 's')}",
+                 f"p05–p95 {format_si(p05, 's')} to {format_si(p95, 's')}"]
+        supply_at = counted(rows, "vsupply_at_valid_v")
+        if p50 < 0 and supply_at.size:
+            lines.append(f"output valid at supply {format_si(float(np.median(supply_at)), 'V')}")
+        ax.text(0.99, 0.97, "\n".join(lines), transform=ax.transAxes, ha="right", va="top", fontsize=7.5,
+                color=style.INKS.slate, bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.5})
     else:
         ax.text(0.5, 0.5, "no capture has a startup delay", transform=ax.transAxes, ha="center",
                 color=style.INKS.slate)
-    ax.legend(loc="best")
+    ax.legend(loc="best", fontsize=7)
     return {"edges_s": edges, "counts": counts, "predicted_counts": predicted_counts, "time_unit": unit}
 
 
@@ -286,40 +318,42 @@ GROUP_STYLES = (("#1F2A36", "o"), ("#2E5E7E", "s"), ("#8C6D46", "^"), ("#5E7F4E"
                 ("#9A4E3A", "P"))
 
 
-def condition_spread(table: pd.DataFrame, condition: str, group_col: str | None = None) -> pd.DataFrame:
-    """Per (group, condition value): n with a delay, median, p05 and p95 of delay_s, and stuck count."""
-    cols = [c for c in (group_col, condition) if c]
+def condition_spread(table: pd.DataFrame, condition: str, series: str | None = None) -> pd.DataFrame:
+    """Per set-up, keyed by (series, condition value, the other set-up keys): n with a counted delay,
+    median, p05 and p95 of those delays (labtool.stats.setups), and the stuck count. Never pooled
+    across set-ups: every row is one ramp × temperature × supply."""
+    others = [k for k in setup_keys(table) if k not in (series, condition)]
+    cols = [c for c in (series, condition) if c] + others
     rows = []
     for key, sub in table.dropna(subset=[condition]).groupby(cols, sort=True, dropna=False):
         key = key if isinstance(key, tuple) else (key,)
-        d = _finite_values(sub["delay_s"])
-        p05, p50, p95 = np.percentile(d, [5, 50, 95]) if d.size else (np.nan,) * 3
-        rows.append({**dict(zip(cols, key)), "n": int(d.size), "delay_median_s": p50, "delay_p05_s": p05,
-                     "delay_p95_s": p95, "n_stuck": int((sub["verdict"] == "stuck_at_zero").sum())})
-    return pd.DataFrame(rows, columns=[*cols, "n", "delay_median_s", "delay_p05_s", "delay_p95_s", "n_stuck"])
+        q = quantiles(counted(sub))
+        stuck = sub["verdict"] == STUCK if "verdict" in sub.columns else sub.get("stuck", pd.Series(False, sub.index))
+        rows.append({**dict(zip(cols, key)), "n": q.n, "delay_median_s": q.median, "delay_p05_s": q.p05,
+                     "delay_p95_s": q.p95, "n_stuck": int(np.asarray(stuck, bool).sum())})
+    frame = pd.DataFrame(rows, columns=[*cols, "n", "delay_median_s", "delay_p05_s", "delay_p95_s", "n_stuck"])
+    return frame.astype({c: float for c in ("delay_median_s", "delay_p05_s", "delay_p95_s")})
 
 
-def delay_vs_conditions(table: pd.DataFrame, *, title: str, group_col: str | None = "lot",
-                        predicted: pd.DataFrame | None = None) -> Plot:
-    """Startup delay against supply ramp time (log axis, one series per group) and against
-    temperature (one series per ramp time, the factor that moves delays most): every capture as a
-    small point, per condition the median with its p05–p95 bar, the model's median dashed.
-    Delays spanning decades or both signs get a symmetric-log axis."""
+def delay_vs_conditions(table: pd.DataFrame, *, title: str, predicted: pd.DataFrame | None = None) -> Plot:
+    """Startup delay against supply ramp time (log axis, one series per temperature) and against
+    temperature (one series per ramp time): every counted capture as a small point, per set-up the
+    median with its p05–p95 bar, the model's median dashed. Delays spanning decades or both signs get a
+    symmetric-log axis."""
     with _styled():
-        group_col = group_col if group_col in table.columns else None
-        delays = _finite_values(table.get("delay_s", []))
+        delays = counted(table)
         factor, unit = time_scale(delays)
         fig = _figure()
         axes = fig.subplots(1, 2, sharey=True)
         spreads = {}
-        panels = ((axes[0], "ramp_s", group_col, "supply ramp time [s]"),
-                  (axes[1], "temperature_c", "ramp_s" if "ramp_s" in table.columns else group_col, "temperature [°C]"))
+        panels = ((axes[0], "ramp_s", "temperature_c", "supply ramp time [s]"),
+                  (axes[1], "temperature_c", "ramp_s", "temperature [°C]"))
         for ax, condition, series, label in panels:
+            series = series if series in table.columns and table[series].notna().any() else None
             if condition not in table.columns or table[condition].isna().all():
                 ax.text(0.5, 0.5, f"no {condition} recorded", transform=ax.transAxes, ha="center")
                 spreads[condition] = condition_spread(table.assign(**{condition: np.nan}), condition)
                 continue
-            series = series if series != condition else None
             spreads[condition] = condition_spread(table, condition, series)
             styles = _series_styles(spreads[condition], series)
             _draw_condition_panel(ax, table, spreads[condition], condition, series, styles, factor,
@@ -331,7 +365,11 @@ def delay_vs_conditions(table: pd.DataFrame, *, title: str, group_col: str | Non
         linear_range = symlog_threshold(delays / factor)
         if linear_range is not None:
             axes[0].set_yscale("symlog", linthresh=linear_range)
-        axes[0].set_ylabel(f"startup delay [{unit}]" + (" (symmetric log)" if linear_range else ""))
+        axes[0].set_ylabel(f"delay from supply valid [{unit}]" + (" (symmetric log)" if linear_range else ""))
+        if delays.size and delays.min() < 0:
+            axes[0].axhline(0.0, color=style.INKS.rule, linewidth=0.8, linestyle=":")
+            axes[0].text(0.01, 0.02, "below 0: ready before supply valid", transform=axes[0].transAxes, fontsize=7,
+                         color=style.INKS.slate)
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
     return Plot("delay_vs_conditions", fig, {"ramp_s": spreads["ramp_s"], "temperature_c": spreads["temperature_c"],
                                              "time_unit": unit, "symlog_linthresh": linear_range})
@@ -349,8 +387,8 @@ def symlog_threshold(values: np.ndarray) -> float | None:
 def _series_label(column: str | None, value) -> str:
     if column is None:
         return "all"
-    if column.endswith("_s") and value is not None:
-        return f"ramp {format_si(float(value), 's')}" if column == "ramp_s" else format_si(float(value), "s")
+    if column in SETUP_KEYS and value is not None and not (isinstance(value, float) and math.isnan(value)):
+        return setup_title({column: value})
     return str(value)
 
 
@@ -361,7 +399,7 @@ def _series_styles(spread: pd.DataFrame, series: str | None) -> dict:
 
 
 def _draw_model(ax, predicted: pd.DataFrame, condition: str, series: str | None, styles: dict, factor: float) -> None:
-    model = condition_spread(predicted.assign(verdict=predicted.get("verdict", "started")), condition, series)
+    model = condition_spread(predicted, condition, series)
     keys = list(dict.fromkeys(model[series])) if series else [None]
     for si, key in enumerate(keys):
         part = model if key is None else model[model[series] == key]
@@ -381,6 +419,7 @@ def _draw_condition_panel(ax, table, spread, condition, series, styles, factor, 
         colour, marker = styles[key]
         offset = (si - (len(keys) - 1) / 2) * step
         sub = table if key is None else table[table[series] == key]
+        sub = sub[delay_mask(sub)]
         x = pd.to_numeric(sub[condition], errors="coerce").to_numpy(float)
         y = pd.to_numeric(sub["delay_s"], errors="coerce").to_numpy(float) / factor
         jitter = rng.uniform(-0.35, 0.35, x.size) * step
@@ -403,16 +442,30 @@ def _draw_condition_panel(ax, table, spread, condition, series, styles, factor, 
 
 
 # ---------------------------------------------------------------------------------------------
-def die_table(table: pd.DataFrame) -> pd.DataFrame:
-    """One row per (wafer, die_x, die_y): captures, median delay and the most severe verdict."""
+def map_setup(table: pd.DataFrame) -> dict | None:
+    """The set-up a die map shows delays at: the one with the most counted delays (the first of equals)."""
+    facets = list(split_setups(table))
+    if not facets:
+        return None
+    return max(facets, key=lambda f: int(delay_mask(f[1]).sum()))[0]
+
+
+def die_table(table: pd.DataFrame, setup: Mapping[str, Any] | None = None) -> pd.DataFrame:
+    """One row per (wafer, die_x, die_y): captures, the median counted delay at ``setup`` (delays of
+    different set-ups are never pooled) and the most severe verdict over every set-up."""
     rank = {v: i for i, v in enumerate(style.VERDICT_STYLES)}
     located = table.dropna(subset=["die_x", "die_y"]).copy()
     if "wafer" not in located.columns:
         located["wafer"] = None
     located["wafer"] = located["wafer"].fillna("—")
+    at = np.ones(len(located), bool)
+    for k, v in (setup or {}).items():
+        if k in located.columns:
+            at &= located[k].isna().to_numpy() if v is None else (located[k] == v).to_numpy()
+    located["_at"] = at
     rows = []
     for (wafer, x, y), sub in located.groupby(["wafer", "die_x", "die_y"], sort=True):
-        d = _finite_values(sub["delay_s"])
+        d = counted(sub[sub["_at"]])
         worst = min(sub["verdict"], key=lambda v: rank.get(v, len(rank)))
         rows.append({"wafer": wafer, "die_x": int(x), "die_y": int(y), "n": len(sub),
                      "delay_median_s": float(np.median(d)) if d.size else np.nan, "verdict": worst})
@@ -420,10 +473,12 @@ def die_table(table: pd.DataFrame) -> pd.DataFrame:
 
 
 def wafer_map(table: pd.DataFrame, *, title: str, max_wafers: int = 6) -> Plot:
-    """Per wafer, two maps by die position: median startup delay, and the most severe verdict
-    (colour, a marker and the legend's text, so it reads without colour too)."""
+    """Per wafer, two maps by die position: the median startup delay at one set-up (:func:`map_setup`,
+    named in the title), and the most severe verdict (colour, a marker and the legend's text, so it
+    reads without colour too)."""
     with _styled():
-        dies = die_table(table)
+        setup = map_setup(table)
+        dies = die_table(table, setup)
         wafers = list(dict.fromkeys(dies["wafer"]))[:max_wafers]
         factor, unit = time_scale(dies["delay_median_s"])
         fig = _figure((9.0, 3.9 * max(1, len(wafers))))
@@ -431,7 +486,7 @@ def wafer_map(table: pd.DataFrame, *, title: str, max_wafers: int = 6) -> Plot:
             ax = fig.add_subplot()
             ax.text(0.5, 0.5, "no die positions recorded", transform=ax.transAxes, ha="center")
             ax.set_axis_off()
-            return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit})
+            return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit, "setup": setup})
         fig.get_layout_engine().set(wspace=0.12)
         axes = np.atleast_2d(fig.subplots(len(wafers), 2))
         delays = dies["delay_median_s"].to_numpy(float) / factor
@@ -462,12 +517,12 @@ def wafer_map(table: pd.DataFrame, *, title: str, max_wafers: int = 6) -> Plot:
                 vs = style.verdict_style(v)
                 row[1].scatter(vd["die_x"], vd["die_y"], marker=vs.marker, s=38, color=vs.colour,
                                edgecolors=style.INKS.ink, linewidths=0.6, label=vs.label, gid=f"verdict:{v}")
-            for ax, what in ((row[0], "median delay"), (row[1], "most severe verdict")):
+            for ax, what in ((row[0], f"median delay at {setup_title(setup or {})}"), (row[1], "most severe verdict")):
                 _wafer_frame(ax, xe, ye)
                 ax.set_title(f"{title} · wafer {wafer} · {what}", fontsize=9.5)
             row[1].legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7.5)
             fig.colorbar(mesh, ax=row[0], label=f"median delay [{unit}]", shrink=0.75)
-    return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit})
+    return Plot("wafer_map", fig, {"dies": dies, "time_unit": unit, "setup": setup})
 
 
 def _wafer_frame(ax, xe, ye) -> None:
@@ -501,33 +556,42 @@ def qq_points(measured_s, predicted_s) -> tuple[np.ndarray, np.ndarray, np.ndarr
     return probs, np.quantile(a, probs), b
 
 
-def qq_plot(measured_s, predicted_s, *, title: str) -> Plot:
+def qq_plot(pairs: Sequence[tuple[str, Any, Any]], *, title: str) -> Plot:
+    """Quantiles of measured against predicted delays, one series per set-up: ``pairs`` is
+    (set-up label, measured delays, predicted delays); quantiles are paired within a set-up only."""
     with _styled():
-        probs, qm, qp = qq_points(measured_s, predicted_s)
-        factor, unit = time_scale(np.concatenate([qm, qp]))
-        fig = _figure((5.6, 5.0))
+        series = []
+        for label, measured_s, predicted_s in pairs:
+            probs, qm, qp = qq_points(measured_s, predicted_s)
+            if probs.size:
+                series.append({"label": label, "probabilities": probs, "measured_s": qm, "predicted_s": qp})
+        every = np.concatenate([np.concatenate([s["measured_s"], s["predicted_s"]]) for s in series]) \
+            if series else np.array([])
+        factor, unit = time_scale(every)
+        fig = _figure((6.4, 5.2))
         ax = fig.add_subplot()
-        if probs.size:
-            lo = min(qm.min(), qp.min()) / factor
-            hi = max(qm.max(), qp.max()) / factor
+        if series:
+            lo, hi = every.min() / factor, every.max() / factor
             pad = 0.05 * (hi - lo or 1.0)
             ax.plot([lo - pad, hi + pad], [lo - pad, hi + pad], color=style.INKS.rule, linestyle="--",
                     linewidth=1.0, label="measured = predicted", gid="identity")
-            ax.scatter(qp / factor, qm / factor, s=16, color=style.INKS.accent, edgecolors="white",
-                       linewidths=0.4, label=f"{probs.size} quantiles", gid="qq")
-            linear_range = symlog_threshold(np.concatenate([qm, qp]) / factor)
+            for i, s in enumerate(series):
+                colour, marker = GROUP_STYLES[i % len(GROUP_STYLES)]
+                ax.scatter(s["predicted_s"] / factor, s["measured_s"] / factor, s=18, color=colour, marker=marker,
+                           edgecolors="white", linewidths=0.4, label=s["label"], gid="qq")
+            linear_range = symlog_threshold(every / factor)
             if linear_range is not None:  # set-ups whose delays differ by decades: keep each visible
                 ax.set_xscale("symlog", linthresh=linear_range)
                 ax.set_yscale("symlog", linthresh=linear_range)
             else:
                 ax.set_aspect("equal", adjustable="datalim")
-            ax.legend(loc="upper left")
+            ax.legend(loc="upper left", fontsize=6.5)
         else:
             ax.text(0.5, 0.5, "needs measured and predicted delays", transform=ax.transAxes, ha="center")
-        ax.set_xlabel(f"predicted startup delay [{unit}]")
-        ax.set_ylabel(f"measured startup delay [{unit}]")
+        ax.set_xlabel(f"predicted delay from supply valid [{unit}]")
+        ax.set_ylabel(f"measured delay from supply valid [{unit}]")
         ax.set_title(title)
-    return Plot("qq", fig, {"probabilities": probs, "measured_s": qm, "predicted_s": qp, "time_unit": unit})
+    return Plot("qq", fig, {"series": series, "time_unit": unit})
 
 
 # ---------------------------------------------------------------------------------------------
@@ -621,18 +685,17 @@ def _triage_panel(ax, panel: TriagePanel, lot_label: str) -> None:
     ax.set_title(panel.title, fontsize=9.5)
 
 
-_CAPTURE_COLUMNS = (("temperature_c", "temperature", "°C"), ("ramp_s", "ramp time", "s"), ("repeat", "repeat", ""),
-                    ("verdict", "verdict", None), ("delay_s", "startup delay", "s"), ("settle_s", "settling", "s"))
+_CAPTURE_COLUMNS = (("temperature_c", "temperature"), ("ramp_s", "ramp time"), ("repeat", "repeat"),
+                    ("verdict", "verdict"), ("delay_s", "startup delay"), ("settle_s", "settling"))
 
 
-def _cell(value, unit: str | None) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "—"
-    if unit is None:
-        return style.verdict_style(str(value)).label if str(value) in style.VERDICT_STYLES else str(value)
-    if unit in ("", "°C"):
-        return f"{float(value):g}{' ' + unit if unit else ''}"
-    return format_si(float(value), unit)
+def _cell(column: str, value) -> str:
+    """A triage-table cell: a verdict's label, else the value in its column's unit (labtool.display)."""
+    if column == "verdict" and str(value) in style.VERDICT_STYLES:
+        return style.VERDICT_STYLES[str(value)].label
+    if column == "repeat" and isinstance(value, float) and value.is_integer():
+        value = int(value)
+    return format_cell(column, value, digits=3)
 
 
 _MAX_TABLE_ROWS = 14
@@ -641,17 +704,17 @@ _MAX_TABLE_ROWS = 14
 def _captures_table(ax, captures: pd.DataFrame, max_rows: int = _MAX_TABLE_ROWS) -> None:
     cols = [c for c in _CAPTURE_COLUMNS if c[0] in captures.columns]
     shown = captures.head(max_rows)
-    cells = [[_cell(row[c], unit) for c, _, unit in cols] for _, row in shown.iterrows()]
+    cells = [[_cell(c, row[c]) for c, _ in cols] for _, row in shown.iterrows()]
     ax.set_title(f"Captures of this part ({len(captures)}{', first ' + str(max_rows) if len(captures) > max_rows else ''})",
                  fontsize=10)
     if not cells:
         ax.text(0.0, 0.5, "no captures", fontsize=9)
         return
-    table = ax.table(cellText=cells, colLabels=[h for _, h, _ in cols], loc="upper center", cellLoc="center")
+    table = ax.table(cellText=cells, colLabels=[h for _, h in cols], loc="upper center", cellLoc="center")
     table.auto_set_font_size(False)
     table.set_fontsize(7.5)
     table.scale(1.0, 1.15)
-    vcol = [c for c, _, _ in cols].index("verdict") if any(c == "verdict" for c, _, _ in cols) else None
+    vcol = [c for c, _ in cols].index("verdict") if any(c == "verdict" for c, _ in cols) else None
     for (r, c), cell in table.get_celld().items():
         cell.set_edgecolor(style.INKS.grid)
         if r == 0:

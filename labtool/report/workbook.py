@@ -21,6 +21,7 @@ from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
 from openpyxl.styles import Alignment, Font, PatternFill
 from openpyxl.utils import get_column_letter
 
+from labtool.display import excel_number_format
 from labtool.report import style
 from labtool.atomic import write_atomic
 
@@ -32,32 +33,16 @@ LEADING_COLUMNS = ("capture_id", "file", "source_path", "locator", "lot", "wafer
 
 FAILURE_COLUMNS = ("capture_id", "source_path", "lot", "wafer", "die_x", "die_y", "part", "temperature_c",
                    "ramp_s", "repeat", "verdict", "t_supply_s", "delay_s", "settle_s", "overshoot_pct",
-                   "vout_final_v", "vsupply_final_v", "supply_at_start_v", "evidence")
+                   "vout_final_v", "vsupply_final_v", "supply_at_start_v", "vsupply_at_valid_v", "evidence")
 
-# Number format per column-name suffix; the first match wins, so compound units come first.
-# "##0.0##E+0" is engineering notation (exponent a multiple of three).
-NUMBER_FORMATS: Sequence[tuple[str, str]] = (
-    ("_v_per_s", '##0.0##E+0" V/s"'),
-    ("_ppm_ucl95", '0.0" ppm"'),
-    ("_ppm", '0.0" ppm"'),
-    ("_pct", '0.00" %"'),
-    ("_hz", '##0.0##E+0" Hz"'),
-    ("_ohm", '##0.0##E+0" Ω"'),
-    ("_a", '##0.0##E+0" A"'),
-    ("_v", '0.0000" V"'),
-    ("_c", '0.0" °C"'),
-    ("_s", '##0.0##E+0" s"'),
-)
 HEADER_FONT = Font(bold=True, color="FFFFFF")
 HEADER_FILL = PatternFill("solid", fgColor=style.INKS.ink.lstrip("#"))
 MAX_CELL_CHARS = 32_767  # the most a spreadsheet cell holds (common practice, no source)
 
 
 def number_format(column: str) -> str | None:
-    for suffix, fmt in NUMBER_FORMATS:
-        if column.lower().endswith(suffix):
-            return fmt
-    return None
+    """The number format that shows the column's unit (labtool.display), None without one."""
+    return excel_number_format(column)
 
 
 def measurement_columns(table: pd.DataFrame) -> list[str]:

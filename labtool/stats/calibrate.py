@@ -39,7 +39,8 @@ from scipy import stats
 from labtool.errors import UsageError
 from labtool.execute import Scheduler
 from labtool.stats.predictions import model_conditions
-from labtool.stats.table import CAME_UP, STUCK, plain, require_columns
+from labtool.stats.setups import counted
+from labtool.stats.table import STUCK, plain, require_columns
 
 CAPACITANCE_SCALE = "c_scale"  # virtual parameter: multiplies every capacitance of the design
 PROFILE_DROP = stats.chi2.ppf(0.95, 1) / 2.0  # 1.921
@@ -138,13 +139,12 @@ class SetupData:
 
 
 def lot_data(measurements: pd.DataFrame) -> dict[tuple[float, float], SetupData]:
-    """Per (ramp_s, temperature_c): delays of captures that came up, stuck count of powered captures."""
+    """Per (ramp_s, temperature_c): delays of captures that came up and stayed (labtool.stats.setups),
+    stuck count of powered captures."""
     powered = measurements[measurements["verdict"] != "no_supply"]
     out = {}
     for (r, t), g in powered.groupby(["ramp_s", "temperature_c"]):
-        d = pd.to_numeric(g["delay_s"], errors="coerce").to_numpy(np.float64)
-        d = d[g["verdict"].isin(CAME_UP).to_numpy() & np.isfinite(d)]
-        out[(float(r), float(t))] = SetupData(d, int((g["verdict"] == STUCK).sum()), len(g))
+        out[(float(r), float(t))] = SetupData(counted(g), int((g["verdict"] == STUCK).sum()), len(g))
     return out
 
 
@@ -327,9 +327,10 @@ def _predict(design_at: Callable[[np.ndarray], object], points: list[np.ndarray]
 # -- entry point --------------------------------------------------------------------------------
 def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITANCE_SCALE,), *, n: int = 60,
               seed: int = 1, predict_at: Sequence[tuple[float, float]] | None = None, n_predict: int = 200,
-              scheduler: Scheduler | None = None) -> CalibrationResult:
+              scheduler: Scheduler | None = None, limits=None) -> CalibrationResult:
     """Fit ``fit`` (design parameter names, or ``c_scale``) to the measured lot; predict stuck ppm at
-    ``predict_at`` (default: unmeasured corners of the design's field ramps and temperatures)."""
+    ``predict_at`` (default: unmeasured corners of the design's field ramps and temperatures).
+    ``limits``: the limits the lot was measured with; every simulated part is measured by them."""
     from labtool.model import monte_carlo
 
     if measurements.empty:
@@ -345,7 +346,7 @@ def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITA
 
     def simulate(u: np.ndarray, at, count: int) -> pd.DataFrame:
         d = with_parameters(design, dict(zip(fit, np.exp(u))))
-        return monte_carlo(d, conditions=list(at), n=count, seed=seed, scheduler=scheduler).samples
+        return monte_carlo(d, conditions=list(at), n=count, seed=seed, limits=limits, scheduler=scheduler).samples
 
     obj = _Objective(lambda u: synthetic_log_likelihood(data, simulate(u, setups, n)))
     f_initial = obj(u0)

@@ -78,11 +78,13 @@ def model_conditions(measurements: pd.DataFrame) -> list[tuple[float, float]]:
 
 
 def predictions_from_model(design, measurements: pd.DataFrame, n: int = 200, seed: int = 1,
-                           scheduler: Scheduler | None = None) -> pd.DataFrame:
+                           scheduler: Scheduler | None = None, limits=None) -> pd.DataFrame:
     """Model predictions at the measured set-ups (the model's Monte Carlo samples: the predictions-table
-    columns ramp_s, temperature_c, delay_s, stuck, plus the model's own, e.g. the sampled parameters).
-    One seed for every set-up: the same simulated parts everywhere (common random numbers)."""
+    columns ramp_s, temperature_c, delay_s, stuck, plus the model's own, e.g. the sampled parameters and
+    ``sample``, the simulated part). One seed for every set-up: the same simulated parts everywhere
+    (common random numbers). ``limits``: the limits the lot was measured with (the simulated parts are
+    measured and given verdicts by the same rules); defaults only when none are known."""
     from labtool.model import monte_carlo
 
-    return monte_carlo(design, conditions=model_conditions(measurements), n=n, seed=seed,
+    return monte_carlo(design, conditions=model_conditions(measurements), n=n, seed=seed, limits=limits,
                        scheduler=scheduler).samples

@@ -7,20 +7,39 @@ from typing import Iterable, Sequence
 
 import pandas as pd
 
+from labtool.display import format_cell
 from labtool.errors import UsageError
 from labtool.stats.table import plain
-from labtool.units import format_si
 
 
 def load_measurements(campaign_path: str) -> pd.DataFrame:
     """``Campaign.measurements()`` of a campaign directory (newest limits), refusing an empty table."""
+    return load_measured(campaign_path)[0]
+
+
+def load_measured(campaign_path: str):
+    """(measurement table, the :class:`~labtool.measure.Limits` it was measured with) of a campaign
+    directory: what the model must be run with to be compared with it."""
     from labtool.store import Campaign
 
     with Campaign.open(campaign_path) as camp:
         table = camp.measurements()
-    if table.empty:
-        raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
-    return table
+        if table.empty:
+            raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
+        return table, measured_limits(camp, table)
+
+
+def measured_limits(campaign, table: pd.DataFrame):
+    """The stored limits of ``table``'s measurement set (``Campaign.limits``) as Limits; defaults for
+    fields a store does not hold."""
+    import dataclasses
+
+    from labtool.measure import Limits
+
+    key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns and len(table) else None
+    stored = campaign.limits(key) if key else {}
+    known = {f.name for f in dataclasses.fields(Limits)}
+    return Limits(**{k: v for k, v in stored.items() if k in known})
 
 
 def json_line(record: dict) -> str:
@@ -28,25 +47,9 @@ def json_line(record: dict) -> str:
                       allow_nan=False)
 
 
-# A column's unit from its name's suffix (the house's unit-suffixed fields).
-_SUFFIX_UNITS = (("_s", "s"), ("_v", "V"), ("_a", "A"), ("_hz", "Hz"))
-
-
-def _cell(value, column: str = "") -> str:
-    value = plain(value)
-    if value is None:
-        return "-"
-    if isinstance(value, float):
-        unit = next((u for suffix, u in _SUFFIX_UNITS if column.endswith(suffix)), None)
-        return format_si(value, unit) if unit else f"{value:.4g}"
-    if isinstance(value, (list, tuple)):
-        return ",".join(map(str, value)) or "-"
-    return str(value)
-
-
 def text_table(records: Iterable[dict], columns: Sequence[str]) -> str:
     """Fixed-width columns, one header line; missing values as ``-``."""
-    rows = [[_cell(r.get(c), c) for c in columns] for r in records]
+    rows = [[format_cell(c, r.get(c), missing="-") for c in columns] for r in records]
     widths = [max([len(c), *(len(r[i]) for r in rows)]) for i, c in enumerate(columns)]
     lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip()]
     lines += ["  ".join(v.ljust(w) for v, w in zip(r, widths)).rstrip() for r in rows]

@@ -3,12 +3,12 @@ part identity, JSON-safe values."""
 
 from __future__ import annotations
 
-import math
 from typing import Iterator, Sequence
 
 import numpy as np
 import pandas as pd
 
+from labtool.display import plain_scalar as plain  # noqa: F401  (numpy → Python, NaN → None)
 from labtool.errors import UsageError
 
 # Verdict names from the measurement engine (CONTRACTS: labtool/measure/verdict.py VERDICTS).
@@ -66,15 +66,13 @@ def part_labels(df: pd.DataFrame) -> pd.Series:
     return (lot.fillna("") + "/" + part).where(part.notna() & lot.notna(), part).fillna("")
 
 
-def plain(value):
-    """numpy scalars → Python; NaN/NA → None (JSON null)."""
-    if value is None or value is pd.NA:
-        return None
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
+def part_units(df: pd.DataFrame) -> pd.Series:
+    """The unit of a yield statement per row: the part (``LOT/PART``); a capture whose part is not
+    known counts as a part of its own (``capture:<id>``)."""
+    labels = part_labels(df)
+    if "capture_id" not in df.columns:
+        return labels.where(labels != "", pd.Series([f"row:{i}" for i in range(len(df))], index=df.index))
+    return labels.where(labels != "", "capture:" + df["capture_id"].astype(str))
 
 
 def delays(rows: pd.DataFrame) -> np.ndarray:
@@ -82,3 +80,9 @@ def delays(rows: pd.DataFrame) -> np.ndarray:
         return np.empty(0)
     d = pd.to_numeric(rows["delay_s"], errors="coerce").to_numpy(dtype=np.float64)
     return d[np.isfinite(d)]
+
+
+def leading(frame: pd.DataFrame, first: Sequence[str]) -> pd.DataFrame:
+    """``frame`` with the columns ``first`` (those it has) in front, the others after in their order."""
+    lead = [c for c in dict.fromkeys(first) if c in frame.columns]
+    return frame[[*lead, *(c for c in frame.columns if c not in lead)]]

@@ -299,15 +299,20 @@ class Campaign:
         return len(records)
 
     def measurements(self, *, limits_key: str | None = None) -> pd.DataFrame:
-        """Measurement rows joined with the capture's conditions (newest limits when not given)."""
+        """Measurement rows joined with the capture's conditions, for the current version of each
+        (source path, locator) only: a changed file's earlier versions never count, measured or not.
+        Under ``limits_key``, or the limits of the newest measurement of a current capture."""
         if limits_key is None:
-            row = self._conn.execute("SELECT limits_key FROM measurements ORDER BY measured_at DESC LIMIT 1").fetchone()
+            row = self._conn.execute(
+                f"SELECT m.limits_key FROM measurements m JOIN captures c USING (capture_id) WHERE {_CURRENT} "
+                "ORDER BY m.measured_at DESC LIMIT 1").fetchone()
             if row is None:
                 return pd.DataFrame()
             limits_key = row[0]
         df = pd.read_sql_query(
             "SELECT m.result_json, m.limits_key, m.measured_at, c.* FROM measurements m "
-            "JOIN captures c USING (capture_id) WHERE m.limits_key = ? ORDER BY c.source_path, c.locator",
+            f"JOIN captures c USING (capture_id) WHERE m.limits_key = ? AND {_CURRENT} "
+            "ORDER BY c.source_path, c.locator",
             self._conn, params=(limits_key,))
         if df.empty:
             return df
@@ -357,12 +362,16 @@ class Campaign:
         return {"captures": len(df), "versions": int(total), "measurements": int(n_meas), "table": df}
 
 
+# The newest version of each (source path, locator): the only one that counts.
+_CURRENT = ("c.version = (SELECT MAX(d.version) FROM captures d WHERE d.source_path = c.source_path"
+            " AND d.locator = c.locator)")
+
+
 def _catalog_query(current_only: bool, capture_ids: Sequence[str] | None) -> tuple[str, list]:
     """SELECT of catalog rows in catalog order: newest versions only, and/or these ids."""
     where, params = [], []
     if current_only:
-        where.append("version = (SELECT MAX(version) FROM captures d WHERE d.source_path = c.source_path"
-                     " AND d.locator = c.locator)")
+        where.append(_CURRENT)
     if capture_ids is not None:
         where.append(f"capture_id IN ({','.join('?' * len(capture_ids))})")
         params.extend(capture_ids)

@@ -17,7 +17,8 @@ from tests.measure.signals import adc, first_order_step, supply_ramp
 
 # issue #3 CLI contract: these keys, at least, in every JSON line
 CONTRACT_KEYS = {"file", "capture_id", "verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct",
-                 "ring_hz", "damping", "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v"}
+                 "ring_hz", "damping", "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v",
+                 "vsupply_at_valid_v"}
 DT = 20e-9
 T = np.arange(0.0, 200e-6, DT)
 

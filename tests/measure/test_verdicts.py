@@ -103,6 +103,11 @@ def test_reference_before_supply_is_valid_gives_a_negative_delay():
     assert r.delay_s < 0 and r.verdict == "started"
     # supply at the output's 10 % instant (80 µs + τ·ln(10/9)) on the 6 kV/s ramp
     assert r.supply_at_start_v == pytest.approx(1.8 * (80e-6 + 5e-6 * np.log(10 / 9) - 10e-6) / 300e-6, abs=0.01)
+    # and at its 90 % instant, 80 µs + τ·ln 10 (first-order step, Ogata §5-2, from memory): the supply
+    # at which the output became valid, the useful figure when the delay is set by a slow ramp
+    t90 = 80e-6 + 5e-6 * np.log(10)
+    assert r.vsupply_at_valid_v == pytest.approx(1.8 * (t90 - 10e-6) / 300e-6, abs=0.01)
+    assert r.delay_s == pytest.approx(t90 - (10e-6 + 0.9 * 300e-6), abs=0.2e-6)
 
 
 def test_unusable_records_are_one_clear_error():

@@ -56,16 +56,21 @@ def _run(args: list[str], profile: Path) -> subprocess.CompletedProcess:
                           timeout=120)
 
 
+def _answer(page: str, work: Path, script: str, name: str) -> object:
+    """Render ``page`` with ``script`` (which leaves JSON in a ``<pre id="labtool-NAME">``), return it."""
+    path = work / f"{name}.html"
+    path.write_text(page.replace("</body>", script + "</body>"), encoding="utf-8")
+    done = _run(["--virtual-time-budget=5000", "--dump-dom", path.as_uri()], work / f"profile-{name}")
+    m = re.search(rf'<pre id="labtool-{name}">(.*?)</pre>', done.stdout, re.S)
+    assert m, f"the {name} script did not run (exit {done.returncode}): {done.stderr[-800:]}"
+    return json.loads(m.group(1).replace("&quot;", '"').replace("&amp;", "&").replace("&lt;", "<").replace("&gt;", ">"))
+
+
 def render_and_check(page: str, work: Path, *, check_column: int | None = None) -> dict:
     """Write ``page`` plus the check script, render it headless, return the check's JSON answer."""
     if check_column is not None:
         page = page.replace('<table class="sortable"', f'<table class="sortable" data-check-column="{check_column}"', 1)
-    path = work / "page.html"
-    path.write_text(page.replace("</body>", CHECK_SCRIPT + "</body>"), encoding="utf-8")
-    done = _run(["--virtual-time-budget=5000", "--dump-dom", path.as_uri()], work / "profile-dom")
-    m = re.search(r'<pre id="labtool-check">(.*?)</pre>', done.stdout, re.S)
-    assert m, f"the check did not run (exit {done.returncode}): {done.stderr[-800:]}"
-    return json.loads(m.group(1).replace("&quot;", '"').replace("&amp;", "&").replace("&lt;", "<").replace("&gt;", ">"))
+    return _answer(page, work, CHECK_SCRIPT, "check")
 
 
 def print_to_pdf(html_path: Path, work: Path) -> bytes:
@@ -73,3 +78,14 @@ def print_to_pdf(html_path: Path, work: Path) -> bytes:
     _run(["--no-pdf-header-footer", f"--print-to-pdf={pdf}", html_path.as_uri()], work / "profile-pdf")
     assert pdf.exists(), "Chromium wrote no PDF"
     return pdf.read_bytes()
+
+
+def visible_text(page: str, work: Path, selector: str) -> list[str]:
+    """What a person sees of every element matching ``selector``: its ``innerText`` as Chromium lays it
+    out (after the stylesheet, so a CSS case transform shows)."""
+    script = ("<script>window.addEventListener('load', function () {"
+              "var out = Array.prototype.map.call(document.querySelectorAll(" + json.dumps(selector) + "),"
+              " function (e) { return e.innerText; });"
+              "var pre = document.createElement('pre'); pre.id = 'labtool-text';"
+              "pre.textContent = JSON.stringify(out); document.body.appendChild(pre); });</script>")
+    return _answer(page, work, script, "text")

@@ -27,7 +27,7 @@ def test_report_writes_html_workbook_and_plots(report, tmp_path):
     names = sorted(p.name for p in files.plots)
     assert all(p.read_bytes()[:4] == b"\x89PNG" for p in files.plots)
     assert sorted(p.name for p in (out / "plots").glob("*.png")) == names
-    # Per lot: histogram, one overlay per ramp time, wafer map; the overview; the returned part's sheet.
+    # Per lot: histogram, one overlay per set-up, wafer map; the overview; the returned part's sheet.
     for lot in ("zr24a", "zr24b"):
         assert {f"lot-{lot}-delay_histogram.png", f"lot-{lot}-waveform_overlay.png",
                 f"lot-{lot}-waveform_overlay-2.png", f"lot-{lot}-wafer_map.png"} <= set(names)
@@ -39,13 +39,21 @@ def test_report_writes_html_workbook_and_plots(report, tmp_path):
     for anchor in ("s-overview", "s-g-lot-zr24a", "s-g-lot-zr24b", "s-failures", "s-p-zr24a-p04", "s-limits"):
         assert f'id="{anchor}"' in page and f'href="#{anchor}"' in page
     assert "limits.max_delay_s" in page  # the limits the campaign was measured with
-    # Per ramp time, not pooled over ramps: lot ZR24A's 20 µs-ramp delays are 13, 14, 15, 16 µs.
-    assert re.search(r"<dt>median delay · ramp 20 µs</dt><dd>14\.\d+ µs \(p05–p95 13\.\d+ µs to 15\.\d+ µs\)", page)
+    # Per set-up, never pooled: lot ZR24A's 20 µs-ramp delays are 13, 14, 15, 16 µs (numpy.percentile:
+    # median 14.5, p05 13.15, p95 15.85), a row of the lot's set-up table.
+    section = page[page.index('id="s-g-lot-zr24a"'):page.index('id="s-g-lot-zr24b"')]
+    cells = r'<td[^>]*>{}</td>'
+    row = "".join(cells.format(v) for v in ("20 µs", "25 °C", "—", "4", "0", "4", r"14\.\d+ µs", r"13\.\d+ µs", r"15\.\d+ µs"))
+    assert re.search(row, section), "the 20 µs set-up row"
+    assert "median delay" not in section  # no pooled delay tile for the lot
+    assert "supply at 90 % of its final level" in section  # the captions say what supply valid was
 
     wb = load_workbook(files.workbook)
     assert wb.sheetnames == ["Summary", "Measurements", "Failures", "Limits"]
     assert wb["Measurements"].max_row == 1 + 16
-    assert [c.value for c in wb["Summary"]["A"]][1:] == ["ZR24A", "ZR24B"]
+    summary = list(wb["Summary"].iter_rows(values_only=True))
+    assert [r[:2] for r in summary[1:]] == [("group", "ZR24A"), ("setup", "ZR24A"), ("setup", "ZR24A"),
+                                            ("group", "ZR24B"), ("setup", "ZR24B"), ("setup", "ZR24B")]
     failures = [r for r in wb["Failures"].iter_rows(min_row=2, values_only=True)]
     assert len(failures) == 1 and "stuck_at_zero" in failures[0]
     limits = {r[0]: r[1] for r in wb["Limits"].iter_rows(min_row=2, values_only=True)}
@@ -80,7 +88,39 @@ def test_grouping_by_other_keys_and_a_measurement_table_without_waveforms(campai
     assert "lot-zr24a-ramp-s-20-us-delay_histogram.png" in names
     assert not any("overlay" in n for n in names)  # no waveforms in a bare table
     assert "part-zr24a-p04-triage.png" in names  # the sheet still ranks the hypotheses
-    assert len(load_workbook(files.workbook)["Summary"]["A"]) == 1 + 4
+    assert len(load_workbook(files.workbook)["Summary"]["A"]) == 1 + 4 * 2  # a group row and its one set-up
+
+
+def test_captions_use_the_supply_valid_level_the_campaign_was_measured_with(campaign, tmp_path):
+    import shutil
+
+    from labtool.measure import Limits
+    from labtool.measure.batch import measure_campaign
+
+    copy = tmp_path / "camp"
+    shutil.copytree(campaign, copy)
+    with Campaign.open(copy) as camp:
+        measure_campaign(camp, Limits(supply_ref="1.5", max_delay_s=50e-6))  # newest measurement set
+    page = write_report(copy, tmp_path / "out").html.read_text(encoding="utf-8")
+    assert "supply valid (supply at 1.5 V)" in page and "supply at 90 %" not in page
+
+
+def test_the_model_overlay_is_run_with_the_campaigns_limits(campaign, tmp_path, monkeypatch):
+    import labtool.model
+    from labtool.errors import ModelError
+    from labtool.measure import Limits
+    from labtool.model import Design
+
+    seen = []
+
+    def asked(*args, **kwargs):  # note what the model was asked, then stop the report there
+        seen.append(kwargs.get("limits"))
+        raise ModelError("stopped by the test")
+
+    monkeypatch.setattr(labtool.model, "monte_carlo", asked)
+    with pytest.raises(ModelError, match="stopped by the test"):
+        write_report(campaign, tmp_path / "out", design=Design(name="ZR-4410"), model_samples=3)
+    assert seen == [Limits(max_delay_s=50e-6)]  # what conftest.py measured the campaign with
 
 
 def test_clear_errors_for_an_unmeasured_campaign_and_a_bad_out_dir(tmp_path):

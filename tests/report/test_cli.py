@@ -16,7 +16,7 @@ def test_report_command_writes_the_files_and_says_where(campaign, tmp_path, caps
     printed = capsys.readouterr().out
     assert f"report:   {out / 'report.html'}" in printed and f"workbook: {out / 'report.xlsx'}" in printed
     assert (out / "report.html").is_file() and len(list((out / "plots").glob("*.png"))) >= 5
-    assert len(load_workbook(out / "report.xlsx")["Summary"]["A"]) == 1 + 4  # 2 lots × 2 ramp times
+    assert len(load_workbook(out / "report.xlsx")["Summary"]["A"]) == 1 + 2 * 4  # 2 lots × 2 ramps, group + set-up
 
 
 @pytest.mark.parametrize("argv, code, message", [

@@ -9,7 +9,7 @@ import pytest
 
 from labtool.report import html as report_html
 from labtool.report import plots
-from tests.report.chromium import print_to_pdf, render_and_check
+from tests.report.chromium import print_to_pdf, render_and_check, visible_text
 from tests.report.tables import measurement_rows
 
 
@@ -36,7 +36,7 @@ def page():
     table = measurement_rows([("ZR24A", "W03", 0, 0, "started", 2e-6), ("ZR24A", "W03", 1, 0, "started", 1e-5),
                               ("ZR24A", "W03", 2, 0, "started", 1e-7), ("ZR24A", "W03", 3, 0, "stuck_at_zero", None)])
     pngs = [plots.delay_histogram(table, title="ZR24A").png(), plots.wafer_map(table, title="ZR24A").png(),
-            plots.qq_plot([1e-6, 2e-6], [1e-6, 3e-6], title="qq").png()]
+            plots.qq_plot([("set-up", [1e-6, 2e-6], [1e-6, 3e-6])], title="qq").png()]
     sections = [
         report_html.Section("s-overview", "Overview", facts=[("captures", "4")], nav_group="overview",
                             tables=[report_html.Table("captures", table[["capture_id", "delay_s", "verdict"]])]),
@@ -75,7 +75,9 @@ def test_text_is_escaped_and_numbers_shown_with_si_prefixes(page):
 def test_display_formats():
     assert report_html.display("delay_s", 1.25e-5) == "12.5 µs"
     assert report_html.display("vout_final_v", 1.2011) == "1.201 V"
-    assert report_html.display("stuck_ppm_ucl95", 45123.4) == "45,123 ppm"
+    assert report_html.display("parts_stuck_ppm_upper95", 45123.4) == "45,123 ppm"
+    assert report_html.display("start_stuck_upper95", 0.15332) == "15.33 %"  # a fraction, shown in %
+    assert report_html.display("delay_s", 999.96e-6) == "1 ms" and report_html.display("delay_s", 999.6e-6) == "999.6 µs"
     assert report_html.display("temperature_c", -40.0) == "-40 °C"
     assert report_html.display("delay_s", float("nan")) == "—"
     assert report_html.display("verdict", "recollapse") == "re-collapse"
@@ -90,6 +92,14 @@ def test_chromium_renders_every_image_and_sorts_tables_without_a_network(page, t
     # Sorted by value, not by text ("10 µs" < "2 µs" as text); missing last both ways.
     assert result["ascending"] == ["100 ns", "2 µs", "10 µs", "—"]
     assert result["descending"] == ["10 µs", "2 µs", "100 ns", "—"]
+
+
+def test_labels_keep_their_case_so_micro_stays_micro(tmp_path):
+    # Upper-casing "µs" gives "ΜS" (U+039C, Greek capital mu), read as milliseconds: what Chromium lays
+    # out must be the label as written (innerText applies the stylesheet's text-transform).
+    sec = report_html.Section("s-a", "lot ZR24A", facts=[("ramp 10 µs · median", "12.5 µs")])
+    shown = visible_text(report_html.render_html("r", "s", [sec]), tmp_path, "dl.facts dt, dl.facts dd, nav h3")
+    assert shown == ["Groups", "ramp 10 µs · median", "12.5 µs"] and "\u039c" not in "".join(shown)
 
 
 def test_chromium_prints_one_section_per_page(tmp_path):

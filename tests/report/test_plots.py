@@ -62,22 +62,37 @@ def test_histogram_default_bins_cover_every_delay_and_count_them_all():
     np.testing.assert_array_equal(heights, np.histogram(d, plot.data["panels"][0]["edges_s"])[0])
 
 
-def test_histogram_has_one_panel_per_ramp_time_with_that_ramps_prediction():
-    # Delays at a slow ramp are negative (reference up before the supply is valid): own panel.
+def test_histogram_has_one_panel_per_setup_with_that_setups_prediction():
+    # Delays at a slow ramp are negative (reference up before the supply is valid): own panel, and a
+    # re-collapse's crossing is no startup delay (labtool.stats.setups).
     table = measurement_rows([("A", None, None, None, "started", d) for d in (10e-6, 11e-6, 11e-6)]
-                             + [("A", None, None, None, "started", d) for d in (-1e-3, -1.1e-3)])
-    table.loc[3:, "ramp_s"] = 0.1
+                             + [("A", None, None, None, "started", d) for d in (-1e-3, -1.1e-3)]
+                             + [("A", None, None, None, "recollapse", -5e-3), ("A", None, None, None, "started", 9e-6)])
+    table.loc[3:5, "ramp_s"] = 0.1
+    table.loc[6, "temperature_c"] = -40.0
     plot = plots.delay_histogram(table, title="A", bins=4,
-                                 predicted_delays_s={1e-4: [10e-6, 12e-6], 0.1: [-1.05e-3] * 4})
+                                 predicted_delays_s={(1e-4, 25.0, None): [10e-6, 12e-6], (0.1, 25.0, None): [-1.05e-3] * 4})
     panels = plot.data["panels"]
-    assert [p["facet"] for p in panels] == [1e-4, 0.1]
-    assert [int(p["counts"].sum()) for p in panels] == [3, 2]
-    assert panels[0]["time_unit"] == "µs" and panels[1]["time_unit"] == "ms"
-    np.testing.assert_allclose(panels[1]["predicted_counts"].sum(), 2.0)  # scaled to that panel's 2 captures
+    assert [tuple(p["setup"].values()) for p in panels] == [(1e-4, -40.0, None), (1e-4, 25.0, None), (0.1, 25.0, None)]
+    assert [int(p["counts"].sum()) for p in panels] == [1, 3, 2]
+    assert panels[1]["time_unit"] == "µs" and panels[2]["time_unit"] == "ms"
+    assert panels[0]["predicted_counts"] is None  # no prediction at that set-up
+    np.testing.assert_allclose(panels[2]["predicted_counts"].sum(), 2.0)  # scaled to that panel's 2 captures
     titles = [ax.get_title(loc="left") for ax in plot.figure.axes]
-    assert "A · ramp 100 µs" in titles and "A · ramp 100 ms" in titles
-    heights = sorted(r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured"))
-    assert sum(heights) == 5
+    assert "ramp 100 µs · 25 °C" in titles and "ramp 100 ms · 25 °C" in titles and "ramp 100 µs · -40 °C" in titles
+    assert sum(r.get_height() for r in _by_gid(plot.figure, Rectangle, "measured")) == 6
+    assert "ready before supply valid" in _texts(plot.figure)  # the negative panel says what it means
+    spans = _by_gid(plot.figure, Rectangle, "before_supply_valid")
+    assert len(spans) == 1 and spans[0].axes.get_title(loc="left") == "ramp 100 ms · 25 °C"
+
+
+def test_histogram_shows_a_far_spec_in_the_legend_not_on_the_axis():
+    table = measurement_rows([("A", None, None, None, "started", d) for d in (10e-6, 11e-6, 12e-6)])
+    plot = plots.delay_histogram(table, title="A", spec_max_delay_s=1e-3)
+    assert not [ln for ax in plot.figure.axes for ln in ax.get_lines() if ln.get_gid() == "spec"]
+    assert plot.data["panels"][0]["edges_s"][-1] < 20e-6
+    legend = plot.figure.axes[0].get_legend_handles_labels()[1]
+    assert "spec max 1 ms (off scale)" in legend
 
 
 # -- waveform overlay -------------------------------------------------------------------------
@@ -175,10 +190,12 @@ def test_qq_equal_sizes_pairs_the_sorted_samples():
     # NIST/SEMATECH e-Handbook §1.3.3.24: with equal sizes the QQ plot is sorted vs sorted.
     measured = np.array([5.0, 1.0, 3.0, 2.0, 4.0]) * 1e-6
     predicted = np.array([2.5, 0.5, 1.5, 4.5, 3.5]) * 1e-6
-    plot = plots.qq_plot(measured, predicted, title="qq")
-    (pts,) = _by_gid(plot.figure, PathCollection, "qq")
-    np.testing.assert_allclose(pts.get_offsets(), np.column_stack([np.sort(predicted), np.sort(measured)]) * 1e6)
-    np.testing.assert_allclose(plot.data["probabilities"], [0.1, 0.3, 0.5, 0.7, 0.9])
+    plot = plots.qq_plot([("ramp 10 µs", measured, predicted), ("ramp 1 ms", measured * 3, predicted * 3)], title="qq")
+    first, second = _by_gid(plot.figure, PathCollection, "qq")  # one series per set-up, never pooled
+    np.testing.assert_allclose(first.get_offsets(), np.column_stack([np.sort(predicted), np.sort(measured)]) * 1e6)
+    np.testing.assert_allclose(second.get_offsets(), 3 * first.get_offsets())
+    np.testing.assert_allclose(plot.data["series"][0]["probabilities"], [0.1, 0.3, 0.5, 0.7, 0.9])
+    assert plot.figure.axes[0].get_legend_handles_labels()[1][1:] == ["ramp 10 µs", "ramp 1 ms"]
 
 
 def test_qq_unequal_sizes_interpolates_the_larger_sample():
@@ -194,27 +211,31 @@ def test_qq_unequal_sizes_interpolates_the_larger_sample():
 
 
 # -- delay versus conditions ------------------------------------------------------------------
-def test_condition_spread_matches_numpy_percentiles_and_counts_stuck_captures():
+def test_condition_spread_is_per_setup_and_counts_stuck_captures():
     rows = []
-    for ramp, ds in ((1e-5, [10e-6, 11e-6, 12e-6, 30e-6]), (1e-3, [20e-6, 22e-6])):
-        rows += [{"lot": "A", "ramp_s": ramp, "temperature_c": 25.0, "verdict": "started", "delay_s": d} for d in ds]
+    for ramp, temp, ds in ((1e-5, 25.0, [10e-6, 11e-6, 12e-6, 30e-6]), (1e-3, 25.0, [20e-6, 22e-6]),
+                           (1e-5, -40.0, [40e-6, 44e-6])):
+        rows += [{"lot": "A", "ramp_s": ramp, "temperature_c": temp, "verdict": "started", "delay_s": d} for d in ds]
     rows.append({"lot": "A", "ramp_s": 1e-3, "temperature_c": -40.0, "verdict": "stuck_at_zero", "delay_s": None})
+    rows.append({"lot": "A", "ramp_s": 1e-3, "temperature_c": -40.0, "verdict": "recollapse", "delay_s": -9e-4})
     table = pd.DataFrame(rows)
     plot = plots.delay_vs_conditions(table, title="A")
-    ramp = plot.data["ramp_s"].set_index("ramp_s")
+    # Against ramp time one series per temperature: every point one set-up (ramp × temperature).
+    ramp = plot.data["ramp_s"].set_index(["temperature_c", "ramp_s"])
     fast = np.array([10e-6, 11e-6, 12e-6, 30e-6])
-    assert ramp.loc[1e-5, "delay_median_s"] == pytest.approx(np.median(fast))
-    assert ramp.loc[1e-5, "delay_p95_s"] == pytest.approx(np.percentile(fast, 95))
-    assert ramp.loc[1e-3, "n"] == 2 and ramp.loc[1e-3, "n_stuck"] == 1
-    temp = plot.data["temperature_c"].set_index("temperature_c")
-    assert temp.loc[-40.0, "n"] == 0 and temp.loc[-40.0, "n_stuck"] == 1
+    assert ramp.loc[(25.0, 1e-5), "delay_median_s"] == pytest.approx(np.median(fast))
+    assert ramp.loc[(25.0, 1e-5), "delay_p95_s"] == pytest.approx(np.percentile(fast, 95))  # numpy reference
+    assert ramp.loc[(-40.0, 1e-5), "delay_median_s"] == pytest.approx(42e-6)  # not pooled with 25 °C
+    assert ramp.loc[(-40.0, 1e-3), "n"] == 0 and ramp.loc[(-40.0, 1e-3), "n_stuck"] == 1  # re-collapse: no delay
+    temp = plot.data["temperature_c"].set_index(["ramp_s", "temperature_c"])
+    assert temp.loc[(1e-3, -40.0), "n"] == 0 and temp.loc[(1e-3, -40.0), "n_stuck"] == 1
     assert "1 stuck" in _texts(plot.figure)
     points = _by_gid(plot.figure, PathCollection, "capture")
-    assert sum(len(p.get_offsets()) for p in points) == 2 * len(table)  # every capture, in both panels
-    # Against temperature, one series per ramp time.
+    assert sum(len(p.get_offsets()) for p in points) == 2 * 8  # every counted capture, in both panels
     labels = plot.figure.axes[1].get_legend_handles_labels()[1]
     assert labels == ["ramp 10 µs: median, p05–p95", "ramp 1 ms: median, p05–p95"]
-    assert plot.data["symlog_linthresh"] is None  # 10–30 µs: a linear axis
+    assert plot.figure.axes[0].get_legend_handles_labels()[1] == ["-40 °C: median, p05–p95", "25 °C: median, p05–p95"]
+    assert plot.data["symlog_linthresh"] is None  # 10–44 µs: a linear axis
 
 
 def test_delays_spanning_decades_and_signs_get_a_symmetric_log_axis():
@@ -259,5 +280,5 @@ def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses()
 
 
 def test_plots_render_to_png():
-    plot = plots.qq_plot([1e-6, 2e-6], [1e-6, 2e-6], title="png")
+    plot = plots.qq_plot([("set-up", [1e-6, 2e-6], [1e-6, 2e-6])], title="png")
     assert plot.png()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -1,88 +1,150 @@
-"""Measured vs predicted: tests against scipy.stats, findings on lots built to show them."""
+"""Measured against predicted, on the generated lot (waveforms → ingest → measure): the stuck-at-zero test
+over parts against scipy.stats.betabinom / binomtest, the delay tests per set-up against
+scipy.stats.ks_2samp / anderson_ksamp on the parts' own delays."""
+
+import warnings
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy import stats
 
 from labtool.errors import InputError
-from labtool.stats.compare import compare, comparison_table, mixed_prediction
+from labtool.stats.compare import beta_binomial_pvalue, compare, comparison_table
 from labtool.stats.predictions import load_predictions
-from labtool.units import format_si
-from tests.stats.tables import measurement_table, set_verdict
+from tests.stats.lots import FAST_COLD, SETUPS, SLOW_COLD, SLOW_HOT
+
+M = 40  # simulated parts per set-up
+DELAY_VERDICTS = ["started", "slow_start", "ringing"]
+# The predicted law per (ramp, temperature): as generated, except that the fast cold set-up is
+# predicted faster (14 µs, measured 20 µs) and the slow cold one 150 µs earlier (invented data).
+_PREDICTED = {FAST_COLD[:2]: 14e-6, SLOW_COLD[:2]: -400e-6}
 
 
-def _predictions(scale=1.0, sigma=0.2, p_stuck=0.0, n=300, seed=21, ramps=(1e-5, 1e-3), temps=(-40.0, 25.0, 125.0)):
-    """Predicted samples per set-up (invented data: a lognormal delay law and a stuck fraction)."""
-    rng = np.random.default_rng(seed)
-    rows = []
-    for r in ramps:
-        for t in temps:
-            stuck = rng.random(n) < p_stuck
-            d = rng.lognormal(np.log(6e-6 * scale), sigma, n)
-            rows += [{"ramp_s": r, "temperature_c": t, "delay_s": np.nan if s else x, "stuck": bool(s)}
-                     for x, s in zip(d, stuck)]
-    return pd.DataFrame(rows)
+def _prediction_file(tmp_path, stuck: dict, with_samples: bool = True):
+    """A predictions table (docs/predictions-format.md) with M simulated parts at every set-up;
+    ``stuck``: (ramp, temperature) → the sample numbers stuck there. Read back through load_predictions."""
+    from tests.stats.lots import _BASE
+
+    rng = np.random.default_rng(5)
+    lines = ["ramp_s,temperature_c,delay_s,stuck" + (",sample" if with_samples else "")]
+    for r, t, _ in SETUPS:
+        base = _PREDICTED.get((r, t), _BASE[(r, t)])
+        z = rng.standard_normal(M)
+        delays = base * np.exp(0.08 * z) if base > 0 else base + 15e-6 * z
+        for i, d in enumerate(delays):
+            is_stuck = i in stuck.get((r, t), ())
+            row = f"{r!r},{t:g},{'' if is_stuck else f'{d:.9g}'},{str(is_stuck).lower()}"
+            lines.append(row + (f",{i}" if with_samples else ""))
+    path = tmp_path / "pred.csv"
+    path.write_text("\n".join(lines) + "\n")
+    return load_predictions(path)
 
 
-def test_single_setup_statistics_equal_scipy():
-    meas = measurement_table(ramps=(1e-5,), temps=(25.0,), parts=20, seed=3)
-    meas = set_verdict(meas, meas.index[:3], "stuck_at_zero")
-    pred = _predictions(scale=1.1, p_stuck=0.01, ramps=(1e-5,), temps=(25.0,))
-    (c,) = compare(meas, pred)
-    a = meas["delay_s"].dropna().to_numpy()
-    b = pred["delay_s"].dropna().to_numpy()
-    # Reference: scipy.stats.ks_2samp and scipy.stats.anderson_ksamp (midrank) on the same samples.
-    ks = stats.ks_2samp(a, b)
-    assert (c.ks_stat, c.ks_pvalue) == pytest.approx((ks.statistic, ks.pvalue), rel=1e-12)
-    with pytest.warns(UserWarning):
-        ad = stats.anderson_ksamp([a, b], variant="midrank")
-    assert (c.ad_stat, c.ad_pvalue) == pytest.approx((ad.statistic, ad.pvalue), rel=1e-12)
-    # Reference: scipy.stats.fisher_exact on [[stuck, not] measured, [stuck, not] predicted].
-    kp = int(pred["stuck"].sum())
-    assert c.predicted_n_stuck == kp and c.n_predicted == 300 and c.measured_n_stuck == 3 and c.n_measured == 60
-    assert c.stuck_pvalue == pytest.approx(stats.fisher_exact([[3, 57], [kp, 300 - kp]]).pvalue, rel=1e-12)
-    assert c.measured_delay_median_s == pytest.approx(np.median(a))
-    assert c.predicted_delay_median_s == pytest.approx(np.median(b))
+@pytest.fixture(scope="module")
+def predicted(tmp_path_factory):
+    return _prediction_file(tmp_path_factory.mktemp("pred"), {SLOW_COLD[:2]: (0, 1)})
 
 
-@pytest.mark.parametrize("scale,expected", [(1.0, "consistent"), (0.7, "slower"), (1.4, "faster")])
-def test_delay_findings(scale, expected):
-    meas = measurement_table(seed=5)
-    (c,) = compare(meas, _predictions(scale=scale))
-    assert c.finding == expected
-    assert c.findings == (expected,)
-    if expected != "consistent":
-        assert c.ks_pvalue < 1e-6 and c.median_ratio == pytest.approx(1 / scale, rel=0.1)
-        assert f"median {format_si(c.measured_delay_median_s, 's')} vs" in c.finding_text
+def _by_lot(lot, predicted):
+    _, joined, _ = lot
+    return joined, {c.group["lot"]: c for c in compare(joined, predicted)}
 
 
-def test_more_stuck_than_predicted_takes_the_lead():
-    meas = measurement_table(seed=6)
-    meas = set_verdict(meas, (meas["ramp_s"] == 1e-3) & meas["part"].isin(["p01", "p02", "p03"]), "stuck_at_zero")
-    (c,) = compare(meas, _predictions(p_stuck=0.002))
-    assert c.finding == "more_stuck" and c.measured_n_stuck == 27
-    assert c.stuck_pvalue < 1e-6
-    assert c.finding_text.startswith("more stuck than predicted: 27 of 144 measured")
+def test_stuck_test_counts_parts_and_carries_the_monte_carlo_uncertainty(lot, predicted):
+    joined, out = _by_lot(lot, predicted)
+    a, b = out["LT1"].stuck, out["LT2"].stuck
+    # Generated: 2 of LT1's 6 parts have a stuck start; 2 of the 40 simulated parts are stuck somewhere.
+    assert (a.n_parts, a.n_parts_stuck, a.predicted_n_parts, a.predicted_n_parts_stuck) == (6, 2, 40, 2)
+    # Reference: scipy.stats.betabinom(6, 2 + ½, 40 − 2 + ½) (the Jeffreys posterior of the simulated
+    # fraction), two-sided: every count no more likely than the observed one (binomtest's rule).
+    pmf = stats.betabinom.pmf(np.arange(7), 6, 2.5, 38.5)
+    assert a.pvalue == pytest.approx(pmf[pmf <= pmf[2] * (1 + 1e-7)].sum(), rel=1e-12)
+    assert (b.n_parts, b.n_parts_stuck) == (5, 0)
+    pmf = stats.betabinom.pmf(np.arange(6), 5, 2.5, 38.5)
+    assert b.pvalue == pytest.approx(pmf[pmf <= pmf[0] * (1 + 1e-7)].sum(), rel=1e-12)
+    row = out["LT1"].to_json_dict()
+    assert row["measured_n_parts_stuck"] == 2 and row["predicted_p_part_stuck"] == pytest.approx(2 / 40)
+    assert row["measured_n_stuck"] == 5 and row["stuck_pvalue"] == a.pvalue
+    expected_more = a.pvalue < 0.05
+    assert (out["LT1"].finding == "more_stuck") is expected_more
 
 
-def test_measured_mix_of_setups_weights_the_prediction():
-    # Two set-ups with very different predicted delays; measured 3:1 → predicted pseudo-sample 3:1.
-    fast = pd.DataFrame({"ramp_s": 1e-5, "delay_s": np.linspace(1e-6, 2e-6, 100), "stuck": False})
-    slow = pd.DataFrame({"ramp_s": 1e-3, "delay_s": np.linspace(10e-6, 20e-6, 100), "stuck": False})
-    pred = {(1e-05,): fast, (0.001,): slow}
-    d, s = mixed_prediction(pred, {(1e-05,): 30, (0.001,): 10})
-    assert d.size == 200 and not s.any()
-    assert np.count_nonzero(d < 5e-6) == 150
+def test_the_exact_test_becomes_binomtest_without_monte_carlo_uncertainty():
+    # With M → ∞ simulated parts the beta-binomial is the binomial: scipy.stats.binomtest(x, n, p).pvalue.
+    for x, n, p in ((1, 2, 0.01), (2, 6, 0.05), (0, 30, 0.1), (9, 20, 0.3)):
+        assert beta_binomial_pvalue(x, n, p * 1e9, 10 ** 9) == pytest.approx(stats.binomtest(x, n, p).pvalue, rel=1e-5)
+    # One of 2 parts stuck against 0 of 100 simulated: P(X ≥ 1) = 1 − (100.5/101)(101.5/102) in closed form
+    # (beta-binomial pmf at 0 = B(a, b + 2)/B(a, b), a = ½, b = 100½); the count 0 is the most likely.
+    assert beta_binomial_pvalue(1, 2, 0, 100) == pytest.approx(1 - (100.5 / 101) * (101.5 / 102), rel=1e-12)
 
 
-def test_no_supply_captures_are_left_out_and_unmatched_counted():
-    meas = measurement_table(seed=7)
-    meas = set_verdict(meas, meas.index[:4], "no_supply")
-    (c,) = compare(meas, _predictions(temps=(-40.0, 25.0)))
-    # The first 4 rows are at -40 and 25 °C; the 48 captures at 125 °C have no prediction.
-    assert c.n_unmatched == 48 and c.n_measured == 144 - 4 - 48
-    assert list(comparison_table([c])["match_columns"]) == ["ramp_s,temperature_c"]
+def _part_medians(rows):
+    up = rows[rows["verdict"].isin(DELAY_VERDICTS)]
+    return up.groupby(up["lot"] + "/" + up["part"])["delay_s"].median().to_numpy()
+
+
+def test_delays_are_compared_set_up_by_set_up_with_parts_as_samples(lot, predicted):
+    joined, out = _by_lot(lot, predicted)
+    c = out["LT1"]
+    assert [tuple(s.setup.values()) for s in c.setups] == sorted(s[:2] for s in SETUPS)
+    for s in c.setups:
+        r, t = s.setup["ramp_s"], s.setup["temperature_c"]
+        rows = joined[(joined["lot"] == "LT1") & np.isclose(joined["ramp_s"], r) & (joined["temperature_c"] == t)]
+        pred = predicted[np.isclose(predicted["ramp_s"], r) & (predicted["temperature_c"] == t) & ~predicted["stuck"]]
+        parts, pd_ = _part_medians(rows), pred["delay_s"].to_numpy()
+        # Reference: scipy.stats.ks_2samp and anderson_ksamp (midrank) on each part's median delay
+        # against the simulated parts' delays at the same set-up.
+        ks = stats.ks_2samp(parts, pd_)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ad = stats.anderson_ksamp([parts, pd_], variant="midrank")
+        assert (s.ks_stat, s.ks_pvalue) == pytest.approx((ks.statistic, ks.pvalue), rel=1e-12)
+        assert (s.ad_stat, s.ad_pvalue) == pytest.approx((ad.statistic, ad.pvalue), rel=1e-12)
+        assert s.ad_pvalue_bound == ("lower" if ad.pvalue >= 0.25 else "upper" if ad.pvalue <= 0.001 else None)
+        counted_rows = rows[rows["verdict"].isin(DELAY_VERDICTS)]
+        assert s.measured.median == pytest.approx(np.median(counted_rows["delay_s"]), rel=1e-12)
+        assert s.n_parts == 6 and s.delay_shift_s == pytest.approx(np.median(parts) - np.median(pd_), rel=1e-12)
+        expected = "slower" if (r, t) in _PREDICTED else "consistent"
+        assert s.finding == expected, (r, t, s.ks_pvalue, s.ad_pvalue)
+    by_setup = {tuple(s.setup.values()): s for s in c.setups}
+    assert by_setup[SLOW_HOT[:2]].measured.n == 17  # the re-collapse is no delay
+    assert by_setup[SLOW_COLD[:2]].delay_shift_s == pytest.approx(150e-6, abs=20e-6)  # later, though negative
+    assert by_setup[SLOW_COLD[:2]].median_ratio is None  # a ratio of negative delays means nothing
+    assert "slower" in c.findings and "slower than predicted at 2 of 5 set-ups (ramp 10 µs, -40 °C: +" in c.finding_text
+
+
+def test_group_rows_pool_no_delays_and_set_up_rows_follow(lot, predicted):
+    joined, out = _by_lot(lot, predicted)
+    rows = out["LT1"].json_rows()
+    assert [r["row"] for r in rows] == ["group"] + ["setup"] * 5
+    assert rows[0]["n_setups"] == 5 and rows[0]["measured_delay_median_s"] is None and rows[0]["ks_pvalue"] is None
+    table = comparison_table(out.values())
+    assert table["row"].tolist().count("group") == 2 and table["match_columns"].iloc[0] == "ramp_s,temperature_c"
+    one = compare(joined, predicted, ("lot", "ramp_s", "temperature_c"))
+    single = next(c for c in one if c.group == {"lot": "LT1", "ramp_s": 1e-5, "temperature_c": -40.0})
+    assert single.to_json_dict()["ks_pvalue"] == single.setups[0].ks_pvalue is not None
+
+
+def test_a_table_without_sample_numbers_takes_set_ups_as_independent(lot, tmp_path):
+    joined = lot[1]
+    stuck = {SLOW_COLD[:2]: (0, 1), SLOW_HOT[:2]: (1, 2)}
+    with_ids = compare(joined, _prediction_file(tmp_path, stuck))[0].stuck
+    assert (with_ids.predicted_n_parts, with_ids.predicted_n_parts_stuck) == (40, 3)  # samples 0, 1, 2
+    (tmp_path / "b").mkdir()
+    without = compare(joined, _prediction_file(tmp_path / "b", stuck, with_samples=False))[0].stuck
+    # π = 1 − Π(1 − p_set-up) over the set-ups: 1 − (38/40)² (closed form), of 40 simulated parts.
+    assert without.predicted_n_parts == 40 and without.predicted_n_parts_stuck == pytest.approx(40 * (1 - 0.95 ** 2))
+    pmf = stats.betabinom.pmf(np.arange(7), 6, 3.9 + 0.5, 36.1 + 0.5)
+    assert without.pvalue == pytest.approx(pmf[pmf <= pmf[2] * (1 + 1e-7)].sum(), rel=1e-9)
+
+
+def test_no_supply_captures_are_left_out_and_unmatched_counted(lot, predicted):
+    joined = lot[1]
+    only_cold = predicted[predicted["temperature_c"] == -40.0]
+    c = {c.group["lot"]: c for c in compare(joined, only_cold)}["LT2"]
+    lt2 = joined[joined["lot"] == "LT2"]
+    assert c.n_measured == int((lt2["temperature_c"] == -40.0).sum())
+    assert c.n_unmatched == int((lt2["temperature_c"] != -40.0).sum()) - 1  # the no-supply capture is left out
 
 
 def test_load_predictions_csv_and_xlsx(tmp_path):
@@ -109,43 +171,3 @@ def test_bad_predictions_tables_get_one_clear_error(tmp_path, text, message):
     with pytest.raises(InputError, match=message):
         load_predictions(path)
 
-
-def test_negative_delays_on_slow_ramps_keep_the_right_direction():
-    # On slow ramps the output is up before the supply is valid: delays are negative. Measured
-    # −100 µs against a predicted −250 µs is a later start, i.e. slower (invented data).
-    meas = measurement_table(ramps=(1e-2,), temps=(25.0,), parts=20, seed=8,
-                             delay_s=lambda rng, n: rng.normal(-100e-6, 5e-6, n))
-    rng = np.random.default_rng(9)
-    pred = pd.DataFrame({"ramp_s": 1e-2, "temperature_c": 25.0, "delay_s": rng.normal(-250e-6, 5e-6, 200),
-                         "stuck": False})
-    (c,) = compare(meas, pred)
-    assert c.finding == "slower"
-    assert c.delay_shift_s == pytest.approx(150e-6, rel=0.05)
-    assert c.median_ratio is None  # a ratio of negative delays means nothing
-    assert c.finding_text.startswith("slower than predicted: delays +149 µs from the prediction")
-
-
-def test_shift_is_taken_per_setup_in_a_mixed_group():
-    # Fast set-up 5 µs predicted, slow −200 µs predicted; measured both exactly 2 µs later.
-    meas = measurement_table(ramps=(1e-5, 1e-2), temps=(25.0,), parts=10, repeats=2, seed=9)
-    meas["delay_s"] = np.where(meas["ramp_s"] == 1e-5, 7e-6, -198e-6) + np.linspace(-1e-7, 1e-7, len(meas))
-    pred = pd.concat([pd.DataFrame({"ramp_s": 1e-5, "delay_s": np.linspace(4.9e-6, 5.1e-6, 50), "stuck": False}),
-                      pd.DataFrame({"ramp_s": 1e-2, "delay_s": np.linspace(-200.1e-6, -199.9e-6, 50), "stuck": False})])
-    (c,) = compare(meas, pred.assign(temperature_c=25.0))
-    assert c.delay_shift_s == pytest.approx(2e-6, rel=0.1)
-    assert c.finding == "slower"
-
-
-def test_spread_is_judged_within_setups():
-    # Invented data: two set-ups 100 µs apart; measured centred on the prediction at each but twice
-    # as spread. The mixture's IQR is set by the set-ups, the within-set-up ratio is 2.
-    rng = np.random.default_rng(12)
-    meas = measurement_table(ramps=(1e-5, 1e-2), temps=(25.0,), parts=40, repeats=3, seed=12)
-    centre = np.where(meas["ramp_s"] == 1e-5, 6e-6, -100e-6)
-    meas["delay_s"] = centre + rng.normal(0, 2e-6, len(meas))
-    pred = pd.concat([pd.DataFrame({"ramp_s": r, "temperature_c": 25.0, "stuck": False,
-                                    "delay_s": c + rng.normal(0, 1e-6, 400)}) for r, c in ((1e-5, 6e-6), (1e-2, -100e-6))])
-    (c,) = compare(meas, pred)
-    assert c.finding == "wider"
-    assert c.spread_ratio == pytest.approx(2.0, rel=0.15)
-    assert abs(c.delay_shift_iqr) < 0.25

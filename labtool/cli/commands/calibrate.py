@@ -1,5 +1,6 @@
 """``labtool calibrate CAMPAIGN --model DESIGN [--fit NAMES] [--out FILE]``: fit model parameters to the lot,
-write the calibrated design, predict stuck-at-zero ppm where nobody measured."""
+write the calibrated design, predict stuck-at-zero ppm where nobody measured. The simulated parts are
+measured with the limits the campaign was measured with."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ from pathlib import Path
 from labtool.errors import UsageError
 from labtool.execute import parse_scheduler
 from labtool.stats.calibrate import CAPACITANCE_SCALE, calibrate, write_design
-from labtool.stats.sources import add_monte_carlo_options, load_measurements, text_table
+from labtool.stats.sources import add_monte_carlo_options, load_measured, text_table
 from labtool.stats.table import parse_keys
 from labtool.units import parse_quantity
 
@@ -52,9 +53,10 @@ def run(args) -> int:
         raise UsageError("--samples needs at least 5 parts and --predict-samples at least 2")
     design = load_design(args.model)
     at = [parse_setup(a) for a in args.at] if args.at else None
-    result = calibrate(load_measurements(args.campaign), design, fit=parse_keys(args.fit, default=()),
-                       n=args.samples, seed=args.seed, predict_at=at, n_predict=args.predict_samples,
-                       scheduler=parse_scheduler(args.scheduler))
+    table, limits = load_measured(args.campaign)
+    result = calibrate(table, design, fit=parse_keys(args.fit, default=()), n=args.samples, seed=args.seed,
+                       predict_at=at, n_predict=args.predict_samples, scheduler=parse_scheduler(args.scheduler),
+                       limits=limits)
     out = Path(args.out) if args.out else Path(f"{Path(args.model).stem}-calibrated.toml")
     fitted = "; ".join(f"{p.name} = {p.estimate:.6g} (95 % CI {_num(p.ci95_low)} to {_num(p.ci95_high)}, {p.interval})"
                        for p in result.parameters)

@@ -21,14 +21,13 @@ from labtool.measure.batch import measure_campaign, result_row
 from labtool.stats.sources import text_table
 from labtool.store import Campaign
 from labtool.store.campaign import CATALOG_NAME
-from labtool.units import format_si
 
 _LIMIT_FLAGS = {"supply_ref": "supply_ref", "supply_min": "supply_min_v", "expect": "expect_v",
                 "level_tol": "level_tol_pct", "band": "band_pct", "max_delay": "max_delay_s",
                 "max_overshoot": "max_overshoot_pct"}
-_TABLE = (("file", None), ("capture_id", None), ("verdict", None), ("t_supply_s", "s"), ("delay_s", "s"),
-          ("rise_s", "s"), ("settle_s", "s"), ("overshoot_pct", "%"), ("ring_hz", "Hz"), ("damping", ""),
-          ("vout_final_v", "V"), ("vsupply_final_v", "V"), ("ramp_v_per_s", "V/s"), ("supply_at_start_v", "V"))
+# Columns of the readable table; each is shown in the unit its name says (labtool.display).
+_TABLE = ("file", "capture_id", "verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz",
+          "damping", "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "vsupply_at_valid_v")
 
 
 def register(sub) -> None:
@@ -100,16 +99,6 @@ def _campaign_rows(path: str, limits: Limits, scheduler):
           f"{report.limits_key}" + (f", {len(report.failed)} failed" if report.failed else ""), file=sys.stderr)
 
 
-def _cell(value, unit):
-    if unit is None or value is None:
-        return value
-    if unit == "":
-        return f"{value:.3g}"
-    if unit == "%":
-        return f"{value:.3g} %"
-    return format_si(value, unit)
-
-
 def run(args) -> int:
     limits = _limits(args)
     scheduler = parse_scheduler(args.scheduler)
@@ -127,12 +116,12 @@ def run(args) -> int:
                 elif args.json:
                     print(json.dumps(item, allow_nan=False), flush=True)
                 else:
-                    table.append({name: _cell(item.get(name), unit) for name, unit in _TABLE})
+                    table.append(item)
         except LabtoolError as exc:  # a whole campaign that cannot be opened; the other paths go on
             failures += 1
             print(f"labtool measure: {exc}", file=sys.stderr)
     if table:
-        print(text_table(table, [name for name, _ in _TABLE]))
+        print(text_table(table, _TABLE))
     if failures:
         print(f"labtool measure: {failures} failure(s)", file=sys.stderr)
     return 1 if failures else 0
