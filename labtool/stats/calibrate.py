@@ -384,7 +384,8 @@ def calibrate(measurements: pd.DataFrame, design, fit: Sequence[str] = (CAPACITA
                 v[i] = math.log(end)
                 points.append(v)
     design_at = lambda v: with_parameters(design, dict(zip(fit, np.exp(v))))  # noqa: E731
-    predictions = _predict(design_at, points, at, n_predict, seed=seed, scheduler=scheduler) if at else ()
+    predictions = (_predict(design_at, points, at, n_predict, seed=seed, scheduler=scheduler, limits=limits)
+                   if at else ())
     return CalibrationResult(parameters=tuple(params), log_likelihood=-obj(u), log_likelihood_initial=-f_initial,
                              n_evaluations=len(obj.cache), n_captures=sum(d.n for d in data.values()),
                              setups=tuple(setups), samples_per_setup=n, seed=seed, predictions=predictions,
