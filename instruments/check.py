@@ -123,15 +123,27 @@ def check_profile(resource: str, profile: Profile, *, roles: list[str] | None = 
                     note(CheckResult(role, name, "skipped", "not exercised by the check"))
     finally:
         with shielded():  # a signal now waits until the output is off
-            off = profile.tables.get("supply", {}).get("output_off")
-            if off is not None and "supply" in roles:
-                try:
-                    off.run(session, **SUPPLY_SETUP)
-                except InstrumentError as exc:
-                    note(CheckResult("supply", "final output_off", "failed",
-                                     f"{exc}: switch the output off at the instrument"))
+            if "supply" in roles and "output_off" in profile.tables.get("supply", {}):
+                _final_off(note, session, profile)
             session.close()
     return results
+
+
+FINAL_OFF = "final output_off"
+
+
+def _final_off(note, session: Session, profile: Profile) -> None:
+    """Off, and read back where the profile can: an output left on is reported as such (exit 6)."""
+    ops = profile.tables["supply"]
+    try:
+        ops["output_off"].run(session, **SUPPLY_SETUP)
+        still_on = ops["output_state"].run(session, channel=1) if "output_state" in ops else False
+    except InstrumentError as exc:
+        note(CheckResult("supply", FINAL_OFF, "failed", f"DANGER: {exc}: switch the output off at the instrument"))
+        return
+    if still_on:
+        note(CheckResult("supply", FINAL_OFF, "failed", "DANGER: the output still reads on after the off command: "
+                                                        "switch it off at the instrument"))
 
 
 def _try(note, role: str, name: str, action) -> None:

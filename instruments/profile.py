@@ -152,7 +152,7 @@ class Operation:
         (``bench check`` waits briefly on purpose); the template may send it as ``{timeout_s}``."""
         limit = timeout_s if timeout_s is not None else (self.timeout_s or DEFAULT_WAIT_S)
         text = self.render({**params, "timeout_s": limit})
-        shown = text or ("*OPC?" if self.sync == "opc" else self.name)
+        shown = self.poll_query if self.sync == "poll" else (text or ("*OPC?" if self.sync == "opc" else self.name))
         try:
             if self.reply != "none":  # a blocking query: the instrument answers done or timed out
                 deadline = limit + session.timeout_s  # its own limit, then time for the answer to come

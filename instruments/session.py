@@ -70,7 +70,7 @@ class _Stalled(Exception):
 
 
 class _PeerClosed(Exception):
-    """The peer closed the connection (recv returned no bytes)."""
+    """The peer closed (recv returned no bytes) or reset the connection; the text says which."""
 
 
 def _recv(sock: socket.socket, max_bytes: int, deadline: float) -> bytes:
@@ -83,10 +83,12 @@ def _recv(sock: socket.socket, max_bytes: int, deadline: float) -> bytes:
         data = sock.recv(max_bytes)
     except (socket.timeout, TimeoutError):
         raise _Stalled from None
+    except OSError as exc:
+        raise _PeerClosed(f"the connection broke: {exc.strerror or exc}") from None
     finally:
         sock.settimeout(None)  # pyvisa-py writes on a blocking socket
     if not data:
-        raise _PeerClosed
+        raise _PeerClosed("the instrument closed the connection")
     return data
 
 
@@ -238,10 +240,9 @@ class Session:
                 partial = f" (an unfinished reply of {len(buf)} bytes came)" if buf else ""
                 raise InstrumentTimeout(f"{self.name}: no reply to {command!r} within {limit_s:g} s{partial}",
                                         instrument=self.name, command=command) from None
-            except _PeerClosed:
-                raise ConnectionLost(f"{self.name}: the instrument closed the connection while {command!r} waited "
-                                     f"for its reply ({len(buf)} bytes of it had come)",
-                                     instrument=self.name, command=command) from None
+            except _PeerClosed as exc:
+                raise ConnectionLost(f"{self.name}: {exc} while {command!r} waited for its reply ({len(buf)} "
+                                     f"bytes of it had come)", instrument=self.name, command=command) from None
         if end + len(term) < len(buf):  # more than one reply: what follows is stale, so is the link
             raise InstrumentError(f"{self.name}: {len(buf) - end - len(term)} unexpected byte(s) after the reply "
                                   f"to {command!r} (a late answer to an earlier query?)",
@@ -304,9 +305,9 @@ class Session:
                               min(deadline, time.monotonic() + self.timeout_s))
             except _Stalled:
                 raise self._stalled(command, parser, limit_s, time.monotonic() >= deadline) from None
-            except _PeerClosed:
-                raise ConnectionLost(self._block_text(command, parser, "the instrument closed the connection"),
-                                     instrument=self.name, command=command) from None
+            except _PeerClosed as exc:
+                raise ConnectionLost(self._block_text(command, parser, str(exc)), instrument=self.name,
+                                     command=command) from None
             event = parser.feed(chunk)
         return event
 

@@ -163,17 +163,22 @@ class TraceEncoder:
 
 
 class SimBench:
-    """What the instruments share: the parts (a waveform source), the routed slot, the chamber."""
+    """What the instruments share: the parts (a waveform source), the routed slot, the chamber.
+
+    ``scope_cls`` / ``supply_cls`` put instruments of another command dialect on the same bench; a
+    scope needs ``armed`` and ``trigger(ramp_s, vdd_v, temperature_c)``, a supply calls :meth:`power_on`.
+    """
 
     def __init__(self, source: WaveformSource, *, slots: set[int] | None = None, noise_v: float = 0.5e-3,
-                 seed: int = 0, chamber_tau_s: float = 0.2, ambient_c: float = 25.0):
+                 seed: int = 0, chamber_tau_s: float = 0.2, ambient_c: float = 25.0, scope_cls=None,
+                 supply_cls=None):
         self.source = source
         self.slots = slots
         self.slot = 1
         self.noise_v = noise_v
         self.rng = np.random.default_rng(seed)
-        self.scope = SimScope(self)
-        self.supply = SimSupply(self)
+        self.scope = (scope_cls or SimScope)(self)
+        self.supply = (supply_cls or SimSupply)(self)
         self.chamber = SimChamber(ambient_c, chamber_tau_s)
         self.power_cycles = 0
 

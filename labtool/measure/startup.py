@@ -112,7 +112,7 @@ def signal_levels(v: np.ndarray) -> SignalLevels:
 
 
 def _supply_metrics(t, supply, levels: SignalLevels, limits: Limits):
-    kind, value = limits.supply_reference()
+    kind, value = limits.supply_ref_level()
     sl = StateLevels(levels.initial_v, levels.final_v)
     ref_v = sl.reference(value) if kind == "fraction" else value
     h = levels.hysteresis(sl.amplitude_v)
