@@ -110,8 +110,8 @@ class Bench:
     def _profile_warnings(self) -> list[str]:
         plan, out = self.plan, []
         supply_spec = plan.instruments["supply"]
-        ignore = {"scope": (), "chamber": (),
-                  "supply": (("channel",) if supply_spec.channel == 1 else ()) + (("slot",) if len(plan.parts) == 1 else ())}
+        supply_ignores = (("channel",) if supply_spec.channel == 1 else ()) + (("slot",) if len(plan.parts) == 1 else ())
+        ignore = {"scope": (), "chamber": (), "supply": supply_ignores}
         for role, profile in self.profiles.items():
             for line in profile.unused_plan_values(role, ignore=ignore[role]):
                 out.append(f"{role} profile {profile.name} ({profile.path}): {line}: that plan value never reaches "

@@ -71,8 +71,9 @@ PLAN_VALUES: dict[str, dict[str, tuple[str, ...]]] = {
     "scope": {"configure_channel": ("channel", "span_v", "offset_v"),
               "configure_timebase": ("record_s", "points", "pretrigger_s"),
               "configure_trigger": ("channel", "level_v"), "read_scaling": ("channel",), "read_data": ("channel",)},
-    "supply": {"set_voltage": ("voltage_v",), "set_current_limit": ("current_a",), "set_ovp": ("ovp_v",),
-               "set_ramp_time": ("ramp_s",), "select_part": ("slot",)},
+    "supply": {"set_voltage": ("channel", "voltage_v"), "set_current_limit": ("channel", "current_a"),
+               "set_ovp": ("channel", "ovp_v"), "set_ramp_time": ("channel", "ramp_s"), "select_part": ("slot",),
+               "output_on": ("channel",), "output_off": ("channel",), "output_state": ("channel",)},
     "chamber": {"set_point": ("temperature_c",)},
 }
 

@@ -360,3 +360,12 @@ def test_bench_check_that_cannot_switch_the_output_off_exits_6(bench_b, capsys):
     out = capsys.readouterr().out
     assert code == 6 and bench_b.supply.output_on
     assert "failed   supply   final output_off" in out and "DANGER" in out
+
+
+def test_supply_channel_the_profile_never_sends_is_warned(bench_b, tmp_path):
+    # This supply has one output and its profile names none; a plan for channel 2 would drive channel 1.
+    plan = make_plan(bench_b, tmp_path, plan_edits=[('profile = "dialect-b.toml"\n\n[[parts]]',
+                                                      'profile = "dialect-b.toml"\nchannel = 2\n\n[[parts]]')])
+    warnings = Bench(plan).warnings
+    assert any("[supply.output_off] does not send channel" in w for w in warnings)
+    assert not any(w.startswith("scope") for w in warnings)
