@@ -34,7 +34,7 @@ class Block:
 class BlockParser:
     """Incremental parser of one block.
 
-    ``expected_bytes``: the length the caller knows from elsewhere (preamble points × sample width);
+    ``expected_bytes``: the length the caller knows from elsewhere (scaling points × sample width);
     a header announcing another length is an error, so a wrong header is never believed.
     ``allow_indefinite``: accept ``#0`` (only where the transport marks the end of a message; then
     call :meth:`end_of_message` when it does). ``trailer``: the bytes expected after the data
@@ -147,7 +147,7 @@ class BlockParser:
     def _check_expected(self, length: int, *, announced: bool = False) -> None:
         if self.expected_bytes is not None and length != self.expected_bytes:
             what = "header announces" if announced else "block holds"
-            raise BlockError(f"block {what} {length} bytes, but the preamble implies {self.expected_bytes}")
+            raise BlockError(f"block {what} {length} bytes, but the scaling reply implies {self.expected_bytes}")
 
     def _truncated(self) -> BlockError:
         if self._length is None:

@@ -46,10 +46,17 @@ class Part:
 
 @dataclass(frozen=True)
 class ScopeSetup:
+    """``span_v`` is a channel's full-scale span and ``offset_v`` the voltage at its centre (the
+    channel shows offset_v ± span_v/2); ``supply_*`` / ``output_*`` set one channel, else both share them."""
+
     supply_channel: int = 1
     output_channel: int = 2
     span_v: float = 4.0
     offset_v: float = 0.0
+    supply_span_v: float | None = None
+    supply_offset_v: float | None = None
+    output_span_v: float | None = None
+    output_offset_v: float | None = None
     points: int = 4000
     record_ramp_multiple: float = 3.0
     record_extra_s: float = 200e-6
@@ -57,6 +64,11 @@ class ScopeSetup:
     pretrigger_extra_s: float = 10e-6
     trigger_level_v: float = 0.18
     read_deadline_s: float = 60.0
+
+    def channel_range(self, role: str) -> tuple[float, float]:
+        """(span_v, offset_v) of the ``supply`` or ``output`` channel."""
+        span, offset = getattr(self, f"{role}_span_v"), getattr(self, f"{role}_offset_v")
+        return (self.span_v if span is None else span), (self.offset_v if offset is None else offset)
 
     def record_s(self, ramp_s: float) -> float:
         return self.record_ramp_multiple * ramp_s + self.record_extra_s
@@ -90,6 +102,22 @@ class SafetyLimits:
 
 
 @dataclass(frozen=True)
+class RunSetup:
+    """How the run behaves: retries per step, and how far a capture may stray from the plan.
+
+    The supply trace's measured ramp (10 % to 90 % of its final level, over 0.8, for a linear ramp)
+    must be within ``ramp_tolerance`` (relative) of the step's ramp time, and its final level within
+    ``supply_tolerance`` of ``voltage_v``; otherwise the capture is refused (``off_plan = "refuse"``)
+    or stored with the tag ``off_plan`` (``"flag"``)."""
+
+    retries: int = 2
+    measure_limits: str | None = None
+    ramp_tolerance: float = 0.25
+    supply_tolerance: float = 0.05
+    off_plan: str = "refuse"
+
+
+@dataclass(frozen=True)
 class Step:
     index: int
     part: Part
@@ -119,8 +147,7 @@ class Plan:
     supply: SupplySetup
     chamber: ChamberSetup
     limits: SafetyLimits
-    retries: int = 2
-    measure_limits: str | None = None
+    run: RunSetup = field(default_factory=RunSetup)
     simulated: bool = False
     sim_population: str | None = None  # population file for --sim (resolved against the plan's folder)
     tags: Mapping[str, str] = field(default_factory=dict)
@@ -199,15 +226,14 @@ def load_plan(path: str | Path) -> Plan:
     supply = _build(SupplySetup, _quantities(supply_doc, f"{where} [supply]"), f"{where} [supply]")
     chamber = _build(ChamberSetup, _quantities(doc.get("chamber", {}), f"{where} [chamber]"), f"{where} [chamber]")
     limits = _build(SafetyLimits, _quantities(doc.get("limits", {}), f"{where} [limits]"), f"{where} [limits]")
-    run = _table(doc, "run", where, required=False)
+    run = _build(RunSetup, _table(doc, "run", where, required=False), f"{where} [run]")
     sim = _table(doc, "sim", where, required=False)
     population = sim.get("population")
     if population is not None and not isinstance(population, str):
         raise PlanError(f"{where} [sim] population: a file path is required")
     plan = Plan(name=name, path=where, sha256=hashlib.sha256(raw).hexdigest(), instruments=instruments,
                 parts=parts, temperatures_c=temps, ramps_s=ramps, repeats=repeats, discharge_s=discharge_s,
-                scope=scope, supply=supply, chamber=chamber, limits=limits, retries=int(run.get("retries", 2)),
-                measure_limits=run.get("measure_limits"),
+                scope=scope, supply=supply, chamber=chamber, limits=limits, run=run,
                 sim_population=str(path.parent / population) if population else None,
                 tags={str(k): str(v) for k, v in _table(doc, "tags", where, required=False).items()})
     check_plan(plan)
@@ -230,6 +256,17 @@ def check_plan(plan: Plan) -> None:
                             f"{lim.min_temperature_c:g} … {lim.max_temperature_c:g} °C")
     if len(plan.temperatures_c) > 1 and "chamber" not in plan.instruments:
         raise PlanError(f"{w} [matrix] temperatures_c: several temperatures need [instruments.chamber]")
+    r = plan.run
+    if r.retries < 0 or r.off_plan not in ("refuse", "flag") or not 0 < r.ramp_tolerance < 1 \
+            or not 0 < r.supply_tolerance < 1:
+        raise PlanError(f"{w} [run]: retries ≥ 0, off_plan \"refuse\" or \"flag\", ramp_tolerance and "
+                        f"supply_tolerance between 0 and 1 (relative) are required")
+    span, offset = plan.scope.channel_range("supply")
+    if offset - span / 2 > 0 or offset + span / 2 < s.voltage_v or span <= 0:
+        raise PlanError(f"{w} [scope]: the supply channel shows {offset - span / 2:g} … {offset + span / 2:g} V "
+                        f"(offset_v ± span_v/2), which does not hold 0 … {s.voltage_v:g} V: the ramp would clip")
+    if not plan.scope.channel_range("output")[0] > 0:
+        raise PlanError(f"{w} [scope]: the output channel's span_v must be positive")
     if len(plan.parts) > 1 and any(p.slot is None for p in plan.parts):
         raise PlanError(f"{w} [[parts]]: with several parts each needs a slot (routed by the supply's "
                         f"select_part operation), or the run could not go on unattended")

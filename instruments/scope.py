@@ -1,4 +1,4 @@
-"""Oscilloscope / digitiser role driver: configure, arm one acquisition, read traces with preambles."""
+"""Oscilloscope / digitiser role driver: configure, arm one acquisition, wait, read traces with scaling."""
 
 from __future__ import annotations
 
@@ -6,35 +6,41 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from instruments.profile import Operation, Profile
+from instruments.profile import Operation, Profile, WaitOutcome
 from instruments.session import Session
-from instruments.waveform import Preamble, decode, sample_width
+from instruments.waveform import Scaling, decode, sample_width
 
 
 @dataclass(frozen=True)
 class RawTrace:
     """One trace as it came off the wire (kept for provenance) and decoded to SI."""
 
-    preamble_text: str
-    preamble: Preamble
+    scaling_text: str
+    scaling: Scaling
     data: bytes
     values: np.ndarray
     clipped: np.ndarray
 
 
-def read_trace(session: Session, profile: Profile, preamble_op: Operation, data_op: Operation, *,
+@dataclass(frozen=True)
+class ChannelSetup:
+    span_v: float  # full-scale span
+    offset_v: float  # the voltage at the centre of the span
+
+
+def read_trace(session: Session, profile: Profile, scaling_op: Operation, data_op: Operation, *,
                what: str, deadline_s: float | None = None, **params) -> RawTrace:
-    """Query the preamble, then read the block with its length checked against points × width."""
-    text = preamble_op.render(params)
-    reply = session.query(text)
-    preamble = Preamble.from_fields(preamble_op.parse(reply), what=f"{session.name} {what} preamble")
-    block = session.read_block(data_op.render(params),
-                               expected_bytes=preamble.points * sample_width(data_op.format),
+    """Query the scaling, then read the block with its length checked against points × width."""
+    text = scaling_op.render(params)
+    reply = session.query(text, timeout_s=scaling_op.timeout_s)
+    scaling = scaling_op.scaling(reply, params, what=f"{session.name}: {what} scaling ({text!r})")
+    command = data_op.render(params)
+    block = session.read_block(command, expected_bytes=scaling.points * sample_width(data_op.format),
                                max_bytes=profile.transport.block_max_bytes, deadline_s=deadline_s,
                                trailer=profile.transport.block_trailer.encode())
-    session.check_errors(data_op.render(params))
-    values, clipped = decode(block.data, data_op.format, preamble, what=f"{session.name} {what}")
-    return RawTrace(reply.strip(), preamble, block.data, values, clipped)
+    session.check_errors(command)
+    values, clipped = decode(block.data, data_op.format, scaling, what=f"{session.name}: {what} ({command!r})")
+    return RawTrace(reply.strip(), scaling, block.data, values, clipped)
 
 
 class Scope:
@@ -42,22 +48,26 @@ class Scope:
         self.ops = profile.require("scope")
         self.session = session
         self.profile = profile
+        self.setup: dict = {}
 
-    def configure(self, *, channels: dict[int, tuple[float, float]], record_s: float, points: int,
-                  pretrigger_s: float, trigger_channel: int, trigger_level_v: float) -> None:
-        """``channels``: channel → (span_v, offset_v)."""
-        for ch, (span_v, offset_v) in channels.items():
-            self.ops["configure_channel"].run(self.session, channel=ch, span_v=span_v, offset_v=offset_v)
-        self.ops["configure_format"].run(self.session)
-        self.ops["configure_timebase"].run(self.session, record_s=record_s, points=points, pretrigger_s=pretrigger_s)
-        self.ops["configure_trigger"].run(self.session, channel=trigger_channel, level_v=trigger_level_v)
+    def configure(self, *, channels: dict[int, ChannelSetup], record_s: float, points: int, pretrigger_s: float,
+                  trigger_channel: int, trigger_level_v: float, ramp_s: float) -> None:
+        """Every operation is given the whole setup, so a profile can compute what its instrument wants."""
+        self.setup = dict(record_s=record_s, points=points, pretrigger_s=pretrigger_s, level_v=trigger_level_v,
+                          trigger_channel=trigger_channel, ramp_s=ramp_s)
+        for ch, cfg in channels.items():
+            self.ops["configure_channel"].run(self.session, channel=ch, span_v=cfg.span_v, offset_v=cfg.offset_v,
+                                              **self.setup)
+        self.ops["configure_format"].run(self.session, **self.setup)
+        self.ops["configure_timebase"].run(self.session, **self.setup)
+        self.ops["configure_trigger"].run(self.session, channel=trigger_channel, **self.setup)
 
     def arm(self) -> None:
-        self.ops["arm_single"].run(self.session)
+        self.ops["arm_single"].run(self.session, **self.setup)
 
-    def wait_complete(self) -> None:
-        self.ops["wait_complete"].run(self.session)
+    def wait_complete(self, *, timeout_s: float | None = None) -> WaitOutcome:
+        return self.ops["wait_complete"].wait(self.session, timeout_s=timeout_s, **self.setup)
 
     def read(self, channel: int, *, deadline_s: float | None = None) -> RawTrace:
-        return read_trace(self.session, self.profile, self.ops["read_preamble"], self.ops["read_data"],
+        return read_trace(self.session, self.profile, self.ops["read_scaling"], self.ops["read_data"],
                           what=f"channel {channel}", deadline_s=deadline_s, channel=channel)

@@ -47,6 +47,38 @@ def parse_numbers(text: str, *, what: str = "reply") -> list[float]:
     return [parse_number(part, what=f"{what} item {i + 1}") for i, part in enumerate(s.split(","))]
 
 
+def split_unquoted(text: str, separators: str) -> list[str]:
+    """``text`` split at any of ``separators`` outside quoted strings (IEEE 488.2 §7.7.5 / §8.7.8
+    string data may hold separators); pieces stripped."""
+    items, current, quote = [], [], None
+    for ch in text:
+        if quote:
+            quote = None if ch == quote else quote
+        elif ch in "\"'":
+            quote = ch
+        elif ch in separators:
+            items.append("".join(current).strip())
+            current = []
+            continue
+        current.append(ch)
+    items.append("".join(current).strip())
+    return items
+
+
+def split_reply(text: str) -> list[str]:
+    """Data elements of a reply: split at ``,`` (data separator) and at ``;``, which joins the answers
+    to the queries of one compound message (IEEE 488.2 §8.4.1, from memory)."""
+    return [] if not text.strip() else split_unquoted(text.strip(), ",;")
+
+
+def parse_item(text: str) -> float | str:
+    """One data element: a number when it reads as one (SCPI special values included), else its text."""
+    try:
+        return parse_number(text)
+    except InstrumentError:
+        return unquote(text)
+
+
 def parse_bool(text: str, *, what: str = "reply") -> bool:
     """A boolean reply, 1/0 (ON/OFF accepted)."""
     value = parse_number(text, what=what)
@@ -94,21 +126,26 @@ def parse_error(text: str) -> ErrorEntry:
     return ErrorEntry(int(m.group(1)), unquote(m.group(2)))
 
 
+def describe_errors(entries: list[ErrorEntry]) -> str:
+    return "; ".join(f'{e.code},"{e.text}"' for e in entries)
+
+
 QUEUE_OVERFLOW = -350  # SCPI-1999: the queue was full, entries were lost
 
 
-def errors_to_exception(entries: list[ErrorEntry], command: str | None) -> ScpiError | None:
-    """The first entry as a ScpiError naming ``command``, with every entry listed in its message."""
+def errors_to_exception(entries: list[ErrorEntry], command: str | None,
+                        instrument: str | None = None) -> ScpiError | None:
+    """The first entry as a ScpiError naming ``instrument`` and ``command``, every entry in its message."""
     real = [e for e in entries if e.is_error]
     if not real:
         return None
     first = real[0]
     text = first.text
     if len(real) > 1:
-        text += "; then " + "; ".join(f'{e.code},"{e.text}"' for e in real[1:])
+        text += "; then " + describe_errors(real[1:])
     if any(e.code == QUEUE_OVERFLOW for e in real):
         text += " (error queue overflowed: earlier entries were lost)"
-    err = ScpiError(first.code, text, command)
+    err = ScpiError(first.code, text, command, instrument)
     err.entries = real
     return err
 

@@ -24,17 +24,16 @@ class Supply:
             raise PlanError(f"over-voltage protection {ovp_v:g} V is below the set voltage {voltage_v:g} V")
         if not current_limit_a > 0:
             raise PlanError(f"current limit {current_limit_a!r} A must be positive")
-        ch = self.channel
-        self.ops["set_ovp"].run(self.session, channel=ch, ovp_v=ovp_v)
-        self.ops["set_current_limit"].run(self.session, channel=ch, current_a=current_limit_a)
-        self.ops["set_ramp_time"].run(self.session, channel=ch, ramp_s=ramp_s)
-        self.ops["set_voltage"].run(self.session, channel=ch, voltage_v=voltage_v)
+        setup = dict(channel=self.channel, voltage_v=voltage_v, current_a=current_limit_a, ovp_v=ovp_v,
+                     ramp_s=ramp_s)
+        for name in ("set_ovp", "set_current_limit", "set_ramp_time", "set_voltage"):  # limits before the voltage
+            self.ops[name].run(self.session, **setup)
 
     def select_part(self, slot: int) -> None:
         op = self.profile.operation("supply", "select_part")
         if op is None:
             raise InstrumentError(f"{self.profile.path}: no [supply.select_part] operation to route slot {slot}")
-        op.run(self.session, slot=slot)
+        op.run(self.session, slot=slot, channel=self.channel)
 
     @property
     def can_select_part(self) -> bool:
@@ -51,6 +50,10 @@ class Supply:
             return None
         return not state.run(self.session, channel=self.channel)
 
+    @property
+    def can_confirm_off(self) -> bool:
+        return self.profile.operation("supply", "output_state") is not None
+
 
 class SourceMeasureUnit(Supply):
     """A supply that also records its output current as a trace (role supply_current)."""
@@ -60,6 +63,6 @@ class SourceMeasureUnit(Supply):
         self.smu_ops = profile.require("smu")
 
     def read_current(self, *, deadline_s: float | None = None) -> RawTrace:
-        return read_trace(self.session, self.profile, self.smu_ops["read_current_preamble"],
+        return read_trace(self.session, self.profile, self.smu_ops["read_current_scaling"],
                           self.smu_ops["read_current_data"], what="current trace", deadline_s=deadline_s,
                           channel=self.channel)

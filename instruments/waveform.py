@@ -1,7 +1,18 @@
-"""From a block of sample codes and its preamble to SI values and sample instants (pure numpy).
+"""labtool's scaling record and the decoding of sample codes to SI values and instants (pure numpy).
 
-Scaling (the usual digitiser convention, common practice, no source):
-value = (code − y_reference)·y_increment + y_origin; time = (i − x_reference)·x_increment + x_origin.
+An instrument reports, in its own words and order, how its integer codes become volts or amperes
+and its sample indices become seconds. A profile maps that reply onto this record (see
+``instruments/profiles/README.md``); the record's names are labtool's own:
+
+- ``points``: samples in the record
+- ``dt_s``: sample interval
+- ``t_first_s``: time of sample 0, relative to the trigger (negative when there is a pre-trigger)
+- ``lsb``: value of one code step, in the trace's unit (V or A)
+- ``code_zero``: the code that stands for ``zero_level``
+- ``zero_level``: the value (V or A) at ``code_zero``
+
+value = (code − code_zero)·lsb + zero_level; time of sample i = t_first_s + i·dt_s
+(the usual linear digitiser scaling; common practice, no source).
 """
 
 from __future__ import annotations
@@ -11,51 +22,57 @@ from typing import Mapping
 
 import numpy as np
 
-from instruments.profile import BLOCK_FORMATS, PREAMBLE_FIELDS
 from labtool.errors import BlockError, InstrumentError
+
+BLOCK_FORMATS = {"int8": "i1", "uint8": "u1", "int16be": ">i2", "int16le": "<i2", "uint16be": ">u2",
+                 "uint16le": "<u2", "float32be": ">f4", "float32le": "<f4"}
+SCALING_FIELDS = ("points", "dt_s", "t_first_s", "lsb", "code_zero", "zero_level")
 
 
 @dataclass(frozen=True)
-class Preamble:
+class Scaling:
     points: int
-    x_increment_s: float
-    x_origin_s: float
-    x_reference: float
-    y_increment: float
-    y_origin: float
-    y_reference: float
+    dt_s: float
+    t_first_s: float
+    lsb: float
+    code_zero: float
+    zero_level: float
 
     @staticmethod
-    def from_fields(values: Mapping[str, float], *, what: str = "preamble") -> "Preamble":
-        p = {k: values[k] for k in PREAMBLE_FIELDS}
-        points = p.pop("points")
+    def from_values(values: Mapping[str, float], *, what: str = "scaling") -> "Scaling":
+        """Checked: a whole number of points ≥ 2, finite numbers, a positive interval, a non-zero step."""
+        points = values["points"]
         if not float(points).is_integer() or points < 2:
             raise InstrumentError(f"{what}: points = {points!r} is not a whole number ≥ 2")
-        bad = [k for k, v in p.items() if not np.isfinite(v)]
-        if bad or not p["x_increment_s"] > 0 or p["y_increment"] == 0:
-            raise InstrumentError(f"{what}: unusable scaling ({', '.join(bad) or 'x_increment_s/y_increment'})")
-        return Preamble(points=int(points), **{k: float(v) for k, v in p.items()})
+        rest = {k: float(values[k]) for k in SCALING_FIELDS[1:]}
+        bad = [k for k, v in rest.items() if not np.isfinite(v)]
+        if not rest["dt_s"] > 0:
+            bad.append(f"dt_s = {rest['dt_s']!r} (must be > 0)")
+        if rest["lsb"] == 0:
+            bad.append("lsb = 0")
+        if bad:
+            raise InstrumentError(f"{what}: unusable scaling ({', '.join(bad)})")
+        return Scaling(points=int(points), **rest)
 
     def times(self) -> np.ndarray:
-        return (np.arange(self.points, dtype=np.float64) - self.x_reference) * self.x_increment_s + self.x_origin_s
+        return self.t_first_s + np.arange(self.points, dtype=np.float64) * self.dt_s
 
-    @property
-    def t0_s(self) -> float:
-        return (0.0 - self.x_reference) * self.x_increment_s + self.x_origin_s
+    def same_time_base(self, other: "Scaling") -> bool:
+        return (self.points, self.dt_s, self.t_first_s) == (other.points, other.dt_s, other.t_first_s)
 
 
 def sample_width(fmt: str) -> int:
     return np.dtype(BLOCK_FORMATS[fmt]).itemsize
 
 
-def decode(data: bytes, fmt: str, preamble: Preamble, *, what: str = "trace") -> tuple[np.ndarray, np.ndarray]:
+def decode(data: bytes, fmt: str, scaling: Scaling, *, what: str = "trace") -> tuple[np.ndarray, np.ndarray]:
     """Values in SI and the per-sample clip flags (codes at either end of the integer range)."""
     dtype = np.dtype(BLOCK_FORMATS[fmt])
-    if len(data) != preamble.points * dtype.itemsize:
-        raise BlockError(f"{what}: {len(data)} data bytes, but {preamble.points} points of {dtype.itemsize} "
+    if len(data) != scaling.points * dtype.itemsize:
+        raise BlockError(f"{what}: {len(data)} data bytes, but {scaling.points} points of {dtype.itemsize} "
                          f"byte(s) were announced; refusing a short or long capture")
     codes = np.frombuffer(data, dtype=dtype)
-    values = (codes.astype(np.float64) - preamble.y_reference) * preamble.y_increment + preamble.y_origin
+    values = (codes.astype(np.float64) - scaling.code_zero) * scaling.lsb + scaling.zero_level
     if dtype.kind in "iu":
         info = np.iinfo(dtype)
         clipped = (codes == info.min) | (codes == info.max)

@@ -64,9 +64,14 @@ class ModelError(LabtoolError):
 
 
 class InstrumentError(LabtoolError):
-    """Anything that went wrong talking to a bench instrument."""
+    """Anything that went wrong talking to a bench instrument (outputs were switched off)."""
 
     exit_code = 4
+
+    def __init__(self, message: str, *, instrument: str | None = None, command: str | None = None):
+        super().__init__(message)
+        self.instrument = instrument
+        self.command = command
 
 
 class InstrumentTimeout(InstrumentError):
@@ -81,21 +86,54 @@ class BlockError(InstrumentError):
     """An IEEE 488.2 binary block was malformed, truncated or of the wrong length."""
 
 
+class NoAcquisition(InstrumentError):
+    """The scope's wait said not done, or its frame is stale (identical to the previous one, or taken
+    before the supply was switched on): there is no new acquisition to store."""
+
+
+class OffPlanCapture(InstrumentError):
+    """The measured supply ramp or final supply voltage is not what the plan asked for."""
+
+
+class OutputNotOff(InstrumentError):
+    """A supply output could not be confirmed off: the run stops and never switches it on again."""
+
+    exit_code = 6
+
+
 class ScpiError(InstrumentError):
     """An entry of the instrument's SCPI error queue, attached to the command that caused it."""
 
-    def __init__(self, code: int, text: str, command: str | None = None):
+    def __init__(self, code: int, text: str, command: str | None = None, instrument: str | None = None):
         self.code = code
         self.text = text
-        self.command = command
         msg = f'SCPI error {code},"{text}"'
         if command:
             msg += f" after {command!r}"
-        super().__init__(msg)
+        if instrument:
+            msg = f"{instrument}: {msg}"
+        super().__init__(msg, instrument=instrument, command=command)
 
 
 class ProfileError(InstrumentError):
-    """A command profile is invalid or lacks an operation a driver needs."""
+    """A command profile is invalid or lacks an operation a driver needs (nothing was driven)."""
+
+    exit_code = 2
+
+
+class Terminated(KeyboardInterrupt):
+    """A terminating signal (SIGINT, SIGTERM, SIGHUP) stopped the command; handled like Ctrl-C.
+
+    Exits with 128 + the signal number, the shell's convention (130, 143, 129)."""
+
+    def __init__(self, signum: int, name: str):
+        super().__init__(f"stopped by {name}")
+        self.signum = signum
+        self.name = name
+        self.exit_code = 128 + signum
+
+    def __str__(self) -> str:
+        return f"stopped by {self.name}"
 
 
 class PlanError(LabtoolError):

@@ -149,31 +149,36 @@ class TraceEncoder:
             raise CommandFailed(-224, "Illegal parameter value")
         self.big_endian = word.startswith("NORM")
 
-    def codes(self, values: np.ndarray, y_inc: float, y_origin: float) -> np.ndarray:
+    def codes(self, values: np.ndarray, lsb: float, zero_level: float) -> np.ndarray:
         limit = 2 ** (self.bits - 1)
-        codes = np.clip(np.round((values - y_origin) / y_inc), -limit, limit - 1)
+        codes = np.clip(np.round((values - zero_level) / lsb), -limit, limit - 1)
         return codes.astype(np.int8 if self.bits == 8 else np.int16)
 
     def block(self, codes: np.ndarray) -> bytes:
         dtype = np.dtype("i1") if self.bits == 8 else np.dtype(">i2" if self.big_endian else "<i2")
         return make_block(codes.astype(dtype).tobytes())
 
-    def y_increment(self, span: float) -> float:
+    def lsb(self, span: float) -> float:
         return span / 2 ** self.bits
 
 
 class SimBench:
-    """What the instruments share: the parts (a waveform source), the routed slot, the chamber."""
+    """What the instruments share: the parts (a waveform source), the routed slot, the chamber.
+
+    ``scope_cls`` / ``supply_cls`` put instruments of another command dialect on the same bench; a
+    scope needs ``armed`` and ``trigger(ramp_s, vdd_v, temperature_c)``, a supply calls :meth:`power_on`.
+    """
 
     def __init__(self, source: WaveformSource, *, slots: set[int] | None = None, noise_v: float = 0.5e-3,
-                 seed: int = 0, chamber_tau_s: float = 0.2, ambient_c: float = 25.0):
+                 seed: int = 0, chamber_tau_s: float = 0.2, ambient_c: float = 25.0, scope_cls=None,
+                 supply_cls=None):
         self.source = source
         self.slots = slots
         self.slot = 1
         self.noise_v = noise_v
         self.rng = np.random.default_rng(seed)
-        self.scope = SimScope(self)
-        self.supply = SimSupply(self)
+        self.scope = (scope_cls or SimScope)(self)
+        self.supply = (supply_cls or SimSupply)(self)
         self.chamber = SimChamber(ambient_c, chamber_tau_s)
         self.power_cycles = 0
 
@@ -228,7 +233,7 @@ class SimScope(TracingDevice):
             (":ABORt", lambda a, g: self._abort()),
             ("*TRG", lambda a, g: self._force_trigger()),
             (":STATus:OPERation:CONDition?", lambda a, g: str(8 if self.armed else 0)),
-            (":TRACe:PREamble?", lambda a, g: self._preamble(self._trace_channel(a))),
+            (":TRACe:SCALing?", lambda a, g: self._scaling(self._trace_channel(a))),
             (":TRACe[:DATA]?", lambda a, g: self._data(self._trace_channel(a))),
         ]
 
@@ -297,19 +302,19 @@ class SimScope(TracingDevice):
             for ch, role in self.WIRING.items():
                 cfg = self.channels[ch]
                 values = traces[role] + self.bench.rng.normal(0.0, self.bench.noise_v, self.points)
-                y_inc = self.encoder.y_increment(cfg["span_v"])
-                self.acquired[ch] = self.encoder.codes(values, y_inc, cfg["offset_v"])
-                self.acquired_settings[ch] = (y_inc, cfg["offset_v"])
+                lsb = self.encoder.lsb(cfg["span_v"])
+                self.acquired[ch] = self.encoder.codes(values, lsb, cfg["offset_v"])
+                self.acquired_settings[ch] = (lsb, cfg["offset_v"])
             self.bench.supply.last_current = (t_rel, traces.get("supply_current"))
             self.armed = False
             self.done.set()
 
-    def _preamble(self, ch: int) -> str:
+    def _scaling(self, ch: int) -> str:
         if ch not in self.acquired:
             raise CommandFailed(-230, "Data corrupt or stale")
-        y_inc, y_origin = self.acquired_settings[ch]
-        x_inc = self.record_s / self.points
-        return preamble_text(self.points, x_inc, -self.pretrigger_s, y_inc, y_origin, self.encoder.bits)
+        lsb, zero_level = self.acquired_settings[ch]
+        return scaling_text(self.points, self.record_s / self.points, -self.pretrigger_s, lsb, zero_level,
+                            self.encoder.bits)
 
     def _data(self, ch: int) -> bytes:
         if ch not in self.acquired:
@@ -317,9 +322,9 @@ class SimScope(TracingDevice):
         return self.encoder.block(self.acquired[ch])
 
 
-def preamble_text(points: int, x_inc: float, x_origin: float, y_inc: float, y_origin: float, bits: int) -> str:
-    """Fields in the generic profile's order: format bits, points, x_inc, x_origin, x_ref, y_inc, y_origin, y_ref."""
-    return f"{bits},{points},{x_inc:.9e},{x_origin:.9e},0,{y_inc:.9e},{y_origin:.9e},0"
+def scaling_text(points: int, dt_s: float, t_first_s: float, lsb: float, zero_level: float, bits: int) -> str:
+    """The generic profile's scaling reply: format bits, then labtool's record (code_zero is 0 here)."""
+    return f"{bits},{points},{dt_s:.9e},{t_first_s:.9e},{lsb:.9e},0,{zero_level:.9e}"
 
 
 class SimSupply(TracingDevice):
@@ -342,7 +347,7 @@ class SimSupply(TracingDevice):
             (":OUTPut#[:STATe]", lambda a, g: self._output(bool_arg(a))),
             (":OUTPut#[:STATe]?", lambda a, g: "1" if self.output_on else "0"),
             (":MEASure[:SCALar]:CURRent[:DC]?", lambda a, g: self._measure_current()),
-            (":TRACe:PREamble?", lambda a, g: self._preamble(a)),
+            (":TRACe:SCALing?", lambda a, g: self._scaling(a)),
             (":TRACe[:DATA]?", lambda a, g: self._data(a)),
         ]
 
@@ -397,15 +402,15 @@ class SimSupply(TracingDevice):
             raise CommandFailed(-230, "Data corrupt or stale")
         return self.last_current
 
-    def _preamble(self, args: str) -> str:
+    def _scaling(self, args: str) -> str:
         t, _ = self._current_trace(args)
-        y_inc = self.encoder.y_increment(self.CURRENT_SPAN_A)
-        return preamble_text(t.size, float(t[1] - t[0]), float(t[0]), y_inc, 0.0, self.encoder.bits)
+        return scaling_text(t.size, float(t[1] - t[0]), float(t[0]), self.encoder.lsb(self.CURRENT_SPAN_A), 0.0,
+                            self.encoder.bits)
 
     def _data(self, args: str) -> bytes:
         _, current = self._current_trace(args)
         noisy = current + self.bench.rng.normal(0.0, 1e-7, current.size)
-        return self.encoder.block(self.encoder.codes(noisy, self.encoder.y_increment(self.CURRENT_SPAN_A), 0.0))
+        return self.encoder.block(self.encoder.codes(noisy, self.encoder.lsb(self.CURRENT_SPAN_A), 0.0))
 
 
 def _num_or_nan(value: float | None) -> str:

@@ -17,6 +17,8 @@ import time
 from dataclasses import dataclass, field
 from typing import Protocol, Sequence
 
+from instruments.scpi import split_unquoted
+
 LOOPBACK = "127.0.0.1"
 
 FAULT_KINDS = ("no_reply", "late_reply", "drop_mid_block", "reset_mid_block", "truncated_block",
@@ -180,19 +182,7 @@ class ScpiServer:
 
 def split_message(message: str) -> list[str]:
     """Commands of one program message (IEEE 488.2 §7.3.2: ``;`` separates program message units)."""
-    parts, current, quoted = [], [], None
-    for ch in message:
-        if quoted:
-            quoted = None if ch == quoted else quoted
-        elif ch in "\"'":
-            quoted = ch
-        elif ch == ";":
-            parts.append("".join(current).strip())
-            current = []
-            continue
-        current.append(ch)
-    parts.append("".join(current).strip())
-    return [p for p in parts if p]
+    return [p for p in split_unquoted(message, ";") if p]
 
 
 def _rewrite_header(wire: bytes, delta: int) -> bytes:

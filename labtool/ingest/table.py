@@ -34,12 +34,12 @@ TIME_NAMES = frozenset({"time", "t", "x", "seconds", "sec", "timestamp", "time_s
 INDEX_NAMES = frozenset({"index", "idx", "sample", "samples", "sample_index", "sample_no", "sample_number",
                          "point", "points", "pt", "n", "no", "nr", "num", "number", "#"})
 _INTERVAL_KEYS = frozenset({"sample_interval", "sampling_interval", "sample_period", "sampling_period", "dt",
-                            "time_step", "timestep", "x_increment", "xincrement", "xinc", "horizontal_increment",
+                            "time_step", "timestep", "xincrement", "xinc", "horizontal_increment",
                             "time_per_sample", "time_interval", "delta_t", "interval", "increment", "hresolution",
                             "horizontal_resolution", "x_interval", "xinterval", "sample_time", "sampling_time"})
 _RATE_KEYS = frozenset({"sample_rate", "sampling_rate", "samplerate", "sampling_frequency", "sample_frequency",
                         "fs"})
-_START_KEYS = frozenset({"t0", "start_time", "time_offset", "x_origin", "xorigin", "first_sample_time", "start",
+_START_KEYS = frozenset({"t0", "start_time", "time_offset", "xorigin", "first_sample_time", "start",
                          "hoffset", "horizontal_offset", "x_offset", "xoffset", "start_x", "x_start"})
 _LENGTH_KEYS = frozenset({"record_length", "number_of_points", "n_points", "points", "record_points", "samples",
                           "size", "memory_length", "record_size", "number_of_samples", "n_samples", "sample_count",
@@ -84,7 +84,7 @@ def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: boo
     """
     for key, value in table.metadata.items():
         name, key_unit = split_name_unit(key)
-        if _key(name) not in keys:
+        if _key(name) not in keys and _key(name).replace("_", "") not in keys:  # "X Increment" as "xincrement"
             continue
         text = value.strip()
         if "." not in text:

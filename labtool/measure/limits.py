@@ -61,7 +61,7 @@ class Limits:
         if self.expect_v is not None and self.expect_v <= 0:
             raise UsageError(f"expect_v: must be positive, not {self.expect_v!r}")
 
-    def supply_reference(self) -> tuple[str, float]:
+    def supply_ref_level(self) -> tuple[str, float]:
         """("fraction", 0.9) or ("volts", 1.62)."""
         return parse_level(self.supply_ref, what="supply_ref")
 

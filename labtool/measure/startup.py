@@ -128,7 +128,7 @@ class SupplyMetrics:
 def supply_metrics(t: np.ndarray, supply: np.ndarray, limits: Limits) -> SupplyMetrics:
     """The supply's part of :func:`measure_startup`; records that share one supply share this."""
     levels = signal_levels(supply)
-    kind, value = limits.supply_reference()
+    kind, value = limits.supply_ref_level()
     sl = StateLevels(levels.initial_v, levels.final_v)
     ref_v = sl.reference(value) if kind == "fraction" else value
     h = levels.hysteresis(sl.amplitude_v)

@@ -111,7 +111,7 @@ def render_job(job: _Job) -> Rendered:
 
 def supply_valid_text(limits: Limits) -> str:
     """What "supply valid" was for these measurements: "supply at 90 % of its final level" or "supply at 1.62 V"."""
-    kind, value = limits.supply_reference()
+    kind, value = limits.supply_ref_level()
     return f"supply at {100 * value:g} % of its final level" if kind == "fraction" else f"supply at {format_si(value, 'V')}"
 
 

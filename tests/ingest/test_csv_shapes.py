@@ -110,6 +110,14 @@ def test_sample_index_only_takes_the_interval_from_the_preamble(tmp_path):
     assert [c.name for c in capture.channels] == ["VDD", "VREF"]  # the index is not a channel
 
 
+def test_spaced_interval_and_start_keys_of_other_tools_are_read(tmp_path):
+    # Another tool's key spelling, as written in its exports: read for interoperability.
+    rows = "".join(f"{i},{min(1.8, 0.1 * i):.2f},{0.0 if i < 10 else 1.2}\n" for i in range(20))
+    text = "X Increment,5e-9\nX Origin,-2e-8\nSample,VDD,VREF\n" + rows
+    (capture,) = read_path(_write(tmp_path, "spaced.csv", text.encode()))
+    assert capture.time.dt_s == 5e-9 and capture.time.t0_s == -2e-8 and capture.time.n == 20
+
+
 def test_sample_rate_in_the_preamble_gives_the_interval(tmp_path):
     rows = "".join(f"{i}\t{0.1 * i:.1f}\t{0.05 * i:.2f}\n" for i in range(10))
     text = "Sample Rate\t500 MSa/s\nIndex\tvdd\tvref\n" + rows

@@ -32,6 +32,17 @@ def bench():
         s.stop()
 
 
+@pytest.fixture
+def bench_b():
+    """The tests' second dialect (dialect_b.py): its scope and supply on loopback servers."""
+    from tests.instruments.dialect_b import dialect_b_bench
+
+    b = dialect_b_bench(first_order_start, slots=set(range(1, 10)), noise_v=0.2e-3, seed=3)
+    yield b
+    for s in b.servers.values():
+        s.stop()
+
+
 @pytest.fixture(scope="session")
 def profile():
     return load_profile("generic-scpi")

@@ -10,7 +10,8 @@ import pytest
 from instruments.acquire import run_plan
 from instruments.plan import load_plan
 from instruments.sim.server import Fault
-from labtool.errors import BlockError, ConnectionLost, InstrumentError, PlanError, ScpiError
+from instruments.journal import Journal
+from labtool.errors import BlockError, ConnectionLost, InstrumentError, OutputNotOff, PlanError, ScpiError
 from labtool.store import Campaign
 
 PLAN = """
@@ -106,7 +107,7 @@ def test_full_run_stores_every_capture_with_conditions(bench, plan, tmp_path):
         assert {c.role for c in cap.channels} == {"supply", "output", "supply_current"}
         assert cap.time.n == 1000
         meta = cap.provenance.metadata
-        assert "preamble_output" in meta and meta["profile_sha256_scope"] == plan_profile_sha()
+        assert "scaling_output" in meta and meta["profile_sha256_scope"] == plan_profile_sha()
         assert abs(float(meta["chamber_reading_c"]) - 30.0) <= 0.5
         # Slot 9 is the stand-in's stuck part: its output stays near zero.
         stuck = camp.load_capture(df[df["part"] == "p02"].iloc[0]["capture_id"])
@@ -196,7 +197,7 @@ def test_block_faults_never_store_a_short_capture(bench, plan, tmp_path):
         bench.servers["scope"].add_fault(Fault(kind, match=r"TRAC\w*:DATA\? CH2", connection=None, times=1))
     with Campaign.open(tmp_path / "camp", create=True) as camp:
         # retries = 1: the truncated block is retried, the wrong header on the retry aborts the run.
-        with pytest.raises(BlockError, match="header announces 1998 bytes, but the preamble implies 2000"):
+        with pytest.raises(BlockError, match="header announces 1998 bytes, but the scaling reply implies 2000"):
             run(plan, camp)
         assert stored_locators(camp) == []  # nothing short was stored
         report = run(plan, camp)  # the dropped link on the resumed run is retried
@@ -221,7 +222,8 @@ def test_bad_plans_are_refused_before_anything_is_driven(tmp_path, edit, message
 
 
 def test_output_that_will_not_switch_off_is_reported_loudly(bench, plan, tmp_path):
-    # A supply that ignores OUTPut OFF (stuck relay, front panel lock): the run stops and says so.
+    # A supply that ignores OUTPut OFF (stuck relay, front panel lock): the run stops at once, says so,
+    # and never switches the output on again (one power cycle, no retry).
     from instruments.acquire import Bench
     lines = []
     stuck = bench.supply._output
@@ -229,7 +231,11 @@ def test_output_that_will_not_switch_off_is_reported_loudly(bench, plan, tmp_pat
     b = Bench(plan)
     short_timeouts(b)
     with Campaign.open(tmp_path / "camp", create=True) as camp:
-        with pytest.raises(InstrumentError, match="output still on after the off command"):
+        with pytest.raises(OutputNotOff, match="could not be confirmed off .*the output still reads on") as info:
             run_plan(plan, camp, bench=b, echo=lines.append)
         assert stored_locators(camp) == []
-    assert any("could not be confirmed off: switch it off at the instrument" in line for line in lines)
+        ended = list(Journal(camp.root, plan.name).events())[-1]
+    assert info.value.exit_code == 6
+    assert bench.supply.on_events == 1 and b.off_unconfirmed
+    assert any("DANGER: the supply output" in line for line in lines)
+    assert ended["event"] == "run_ended" and ended["outputs_off"] is False

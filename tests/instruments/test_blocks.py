@@ -50,9 +50,9 @@ def test_header_too_long_for_the_data_is_truncation():
         parse_block(b"#19abcde\n")
 
 
-def test_header_length_disagreeing_with_preamble_is_refused_before_reading():
+def test_header_length_disagreeing_with_scaling_is_refused_before_reading():
     p = BlockParser(expected_bytes=8)
-    with pytest.raises(BlockError, match="announces 6 bytes, but the preamble implies 8"):
+    with pytest.raises(BlockError, match="announces 6 bytes, but the scaling reply implies 8"):
         p.feed(b"#16")
 
 

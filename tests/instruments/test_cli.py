@@ -94,6 +94,15 @@ def test_bad_plan_one_line_error(tmp_path, capsys):
     assert err == [f"labtool acquire: {plan} [instruments.supply]: missing (a plan needs a scope and a supply)"]
 
 
+def test_missing_profile_is_exit_2_without_a_resume_hint(tmp_path, capsys):
+    # Running again cannot help a plan whose profile file does not exist: no "run again" advice.
+    plan = small_sim_plan(tmp_path)
+    plan.write_text(plan.read_text().replace('profile = "generic-scpi"', 'profile = "no-such.toml"', 1))
+    assert main(["acquire", str(plan), "--into", str(tmp_path / "camp")]) == 2
+    err = capsys.readouterr().err
+    assert "no-such.toml: no such profile file" in err and "run the same command again" not in err
+
+
 def test_bench_sim_serves_on_loopback_only(tmp_path):
     proc = subprocess.Popen([sys.executable, "-m", "labtool.cli", "bench", "sim", "--population",
                              str(ROOT / "sample_runs" / "population.toml"), "--fault", "supply:error_queue:SOUR1:VOLT"],

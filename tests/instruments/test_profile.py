@@ -1,4 +1,4 @@
-"""Profiles, SCPI header forms, preamble scaling, error-queue overflow, chamber soak, bench check."""
+"""Profiles, SCPI header forms, the scaling record, error-queue overflow, chamber soak, bench check."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ from instruments.chamber import Chamber
 from instruments.check import check_profile
 from instruments.profile import load_profile
 from instruments.sim.headers import match
-from instruments.waveform import Preamble, decode
+from instruments.waveform import Scaling, decode
 from labtool.errors import BlockError, InstrumentTimeout, ProfileError, ScpiError
 
 
@@ -22,7 +22,7 @@ def test_generic_profile_serves_every_role(profile):
 
 @pytest.mark.parametrize("edit, message", [
     (('version = 1', 'version = 7'), r"\[version\]: this labtool reads profile version 1, got 7"),
-    (('reply = "preamble"', 'reply = "table"'), r"\[scope.read_preamble\] reply: 'table' is not one of"),
+    (('reply = "scaling"', 'reply = "table"'), r"\[scope.read_scaling\] reply: 'table' is not one of"),
     (('format = "int16be"', 'format = "int12"'), r"\[scope.read_data\] format: 'int12'"),
     (('sync = "opc"\ntimeout_s = 20.0', 'sync = "poll"'), r"\[scope.wait_complete\]: sync = \"poll\" needs poll_query"),
     (('timeout_s = 5.0', 'timeout_s = "soon"'), r"\[transport\] timeout_s: 'soon' is not a number"),
@@ -51,10 +51,9 @@ def test_scpi_short_and_long_forms(header, ok):
     assert bool(match(":SOURce#:VOLTage[:LEVel][:IMMediate][:AMPLitude]", header)) is ok
 
 
-def test_preamble_scaling_formula():
-    # value = (code − y_ref)·y_inc + y_origin; time = (i − x_ref)·x_inc + x_origin (common practice, no source).
-    p = Preamble(points=4, x_increment_s=1e-6, x_origin_s=-2e-6, x_reference=1.0, y_increment=0.01,
-                 y_origin=0.5, y_reference=128.0)
+def test_scaling_record_formula():
+    # value = (code − code_zero)·lsb + zero_level; time = t_first_s + i·dt_s (common practice, no source).
+    p = Scaling(points=4, dt_s=1e-6, t_first_s=-3e-6, lsb=0.01, code_zero=128.0, zero_level=0.5)
     values, clipped = decode(bytes([0, 128, 200, 255]), "uint8", p)
     assert np.allclose(values, [(0 - 128) * 0.01 + 0.5, 0.5, (200 - 128) * 0.01 + 0.5, (255 - 128) * 0.01 + 0.5])
     assert clipped.tolist() == [True, False, False, True]
@@ -87,7 +86,7 @@ def test_bench_check_reports_every_operation(bench, profile):
                for r in check_profile(server.resource, profile, roles=[role])}
     assert all(r.status in ("ok", "skipped") for r in results.values()), \
         [r for r in results.values() if r.status not in ("ok", "skipped")]
-    assert results[("scope", "read_preamble+read_data")].detail.startswith("1000 points, 2000 bytes")
+    assert results[("scope", "read_scaling+read_data")].detail.startswith("1000 points, 2000 bytes")
     assert results[("supply", "output_state")].detail == "True"
     assert results[("supply", "select_part")].status == "skipped"
     assert bench.supply.output_on is False  # the check leaves the output off
@@ -95,7 +94,8 @@ def test_bench_check_reports_every_operation(bench, profile):
 
 def test_bench_check_names_what_failed(bench, profile, tmp_path):
     text = open(profile.path, encoding="utf-8").read().replace(":OUTPut{channel}:STATe?", ":OUTPut{channel}:STATus?")
-    text = text.replace('[chamber.read_temperature]', '[chamber.read_temperature_unused]')
+    text = text.replace('[chamber.read_temperature]', '# [chamber.read_temperature] left out').replace(
+        'command = ":MEASure:TEMPerature?"\nreply = "number"', '')
     text = text.replace("timeout_s = 5.0", "timeout_s = 0.5")  # a rejected query gets no reply: keep it short
     path = tmp_path / "p.toml"
     path.write_text(text)
@@ -113,7 +113,7 @@ def test_poll_synchronisation_waits_for_the_status_bit(bench, sessions, profile)
     # bit 3 (SWEeping; SCPI-1999 STATus:OPERation register, from memory) while armed.
     import dataclasses
     from instruments.profile import Operation
-    from instruments.scope import Scope
+    from instruments.scope import ChannelSetup, Scope
     from instruments.supply import Supply
     poll = Operation("wait_complete", "", sync="poll", poll_query=":STATus:OPERation:CONDition?", poll_mask=8,
                      poll_done="clear", timeout_s=5.0)
@@ -121,15 +121,15 @@ def test_poll_synchronisation_waits_for_the_status_bit(bench, sessions, profile)
     tables["scope"]["wait_complete"] = poll
     polled = dataclasses.replace(profile, tables=tables)
     scope, supply = Scope(sessions["scope"], polled), Supply(sessions["supply"], polled)
-    scope.configure(channels={1: (4.0, 0.0)}, record_s=1e-3, points=500, pretrigger_s=0.0, trigger_channel=1,
-                    trigger_level_v=0.18)
+    scope.configure(channels={1: ChannelSetup(4.0, 0.0)}, record_s=1e-3, points=500, pretrigger_s=0.0,
+                    trigger_channel=1, trigger_level_v=0.18, ramp_s=1e-4)
     supply.configure(voltage_v=1.8, current_limit_a=0.01, ovp_v=2.0, ramp_s=1e-4)
     scope.arm()
     assert int(sessions["scope"].query(":STATus:OPERation:CONDition?")) & 8 == 8
     with pytest.raises(InstrumentTimeout, match="wait_complete not complete after 0.2 s"):
         dataclasses.replace(poll, timeout_s=0.2).run(sessions["scope"])  # nothing triggered yet
     supply.on()
-    scope.wait_complete()
+    assert scope.wait_complete().done is True
     assert len(scope.read(1).values) == 500
     supply.off()
 

@@ -9,7 +9,7 @@ import math
 import pytest
 
 from instruments.scpi import (decode_esr, errors_to_exception, parse_bool, parse_error, parse_idn,
-                              parse_int, parse_number, parse_numbers)
+                              parse_int, parse_item, parse_number, parse_numbers, split_reply)
 from labtool.errors import InstrumentError
 
 
@@ -73,3 +73,12 @@ def test_esr_bits():
     assert decode_esr(0b10110100) == {"query_error", "execution_error", "command_error", "power_on"}
     with pytest.raises(InstrumentError):
         decode_esr(256)
+
+
+def test_reply_data_split_at_commas_and_compound_semicolons():
+    # IEEE 488.2 §8.4.1 (from memory): "," separates data elements, ";" the answers of a compound
+    # query; a quoted string (§8.7.8) may hold either.
+    assert split_reply("CH1,V,1e-6;2000\n") == ["CH1", "V", "1e-6", "2000"]
+    assert split_reply('"a,b;c",4') == ['"a,b;c"', "4"]
+    assert split_reply("") == []
+    assert [parse_item(x) for x in split_reply('CH1,"x",+2.5E-03,9.91E37')][:3] == ["CH1", "x", 2.5e-3]

@@ -9,14 +9,14 @@ from labtool.measure import Limits
 def test_defaults_are_those_of_the_issue():
     lim = Limits()
     assert (lim.supply_ref, lim.band_pct) == ("90%", 1.0)  # issue #3 defaults
-    assert lim.supply_reference() == ("fraction", 0.9)
+    assert lim.supply_ref_level() == ("fraction", 0.9)
 
 
 def test_toml_file_then_flags_override(tmp_path):
     f = tmp_path / "zr4410.toml"
     f.write_text('supply_ref = "1.62"\nexpect_v = 1.2\nmax_delay_s = "500us"\nlevel_tol_pct = "3%"\n')
     lim = Limits.from_toml(f)
-    assert lim.supply_reference() == ("volts", 1.62)
+    assert lim.supply_ref_level() == ("volts", 1.62)
     assert (lim.expect_v, lim.max_delay_s, lim.level_tol_pct) == (1.2, pytest.approx(500e-6), 3.0)
     over = lim.merged(max_delay_s="250e-6", expect_v=None, band_pct="2")
     assert (over.max_delay_s, over.expect_v, over.band_pct) == (pytest.approx(250e-6), 1.2, 2.0)

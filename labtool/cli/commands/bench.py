@@ -9,7 +9,7 @@ import threading
 from pathlib import Path
 
 from instruments.sim.population import DEFAULT_POPULATION
-from labtool.errors import UsageError
+from labtool.errors import OutputNotOff, Terminated, UsageError
 
 
 def register(sub) -> None:
@@ -36,8 +36,9 @@ def register(sub) -> None:
 
 def run_check(args) -> int:
     from instruments.acquire import SAFETY_CAUTIONS
-    from instruments.check import CHECK_CURRENT_A, CHECK_OVP_V, CHECK_VOLTAGE_V, check_profile
+    from instruments.check import CHECK_CURRENT_A, CHECK_OVP_V, CHECK_VOLTAGE_V, FINAL_OFF, check_profile
     from instruments.profile import load_profile
+    from instruments.stopping import stop_on_signals
 
     profile = load_profile(args.profile)
     roles = args.role or None
@@ -53,12 +54,19 @@ def run_check(args) -> int:
         else:
             print(f"{r.status:<8} {r.role:<8} {r.operation:<42} {r.detail}", flush=True)
 
-    results = check_profile(args.resource, profile, roles=roles, backend=args.backend, report=show)
+    with stop_on_signals():  # a signal stops the check as Ctrl-C does, after the output is off
+        try:
+            results = check_profile(args.resource, profile, roles=roles, backend=args.backend, report=show)
+        except Terminated as exc:
+            print(f"labtool bench check: {exc}", file=sys.stderr)
+            return exc.exit_code
     bad = [r for r in results if r.status in ("failed", "absent")]
     if not args.json:
         ok = sum(r.status == "ok" for r in results)
         print(f"{args.resource}: {ok} operation(s) worked, {len(bad)} failed or missing "
               f"(profile {profile.name}, {profile.path})")
+    if any(r.operation == FINAL_OFF for r in bad):
+        return OutputNotOff.exit_code  # the output may still be on
     return 1 if bad else 0
 
 
