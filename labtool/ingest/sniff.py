@@ -11,20 +11,22 @@ the head of the file; the numeric body is parsed by a columnar reader (see ``csv
 
 from __future__ import annotations
 
+import csv
 import re
 from collections import Counter
 from dataclasses import dataclass
 from typing import Sequence
 
 from labtool.errors import InputError, UsageError
+from labtool.ingest.stamps import STAMP_CELL, stamp_kind
 from labtool.units import parse_unit
 
 HEAD_BYTES = 256 * 1024
 HEAD_LINES = 256  # lines the sniffer looks at first (scope preambles are a few dozen)
 LONG_HEAD_LINES = 16384  # ... and at most, when no table starts in the first HEAD_LINES (long preambles)
 LONG_HEAD_BYTES = 4 * 1024 * 1024
-SAMPLE_ROWS = 16
-MAX_CHANNEL_NUMBER = 64  # a header cell "1" … "64" can name a channel  # data rows that decide which trailing columns are empty
+SAMPLE_ROWS = 16  # data rows that decide which leading and trailing columns are empty
+MAX_CHANNEL_NUMBER = 64  # a header cell "1" … "64" can name a channel
 
 # Caps that keep time and memory bounded on hostile or broken files; each refusal says which cap.
 MAX_FILE_BYTES = 1 << 30  # a file on disk, checked from its size before it is read
@@ -33,14 +35,23 @@ MAX_COLUMNS = 1024
 MAX_LINE_BYTES = 256 * 1024
 QUOTED_CHARS = 40  # of a bad cell, in a message
 
-# Cells that stand for a missing or non-finite value (lower case, for sniffing). NULL_TOKENS are what
-# pyarrow is told to read as missing; "inf" it parses as a number, flagged later like SCPI values.
-NA_TOKENS = frozenset({"", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "inf", "+inf", "-inf",
-                       "infinity", "+infinity", "-infinity"})
-NULL_TOKENS = ("", "nan", "NaN", "NAN", "-nan", "+nan", "NA", "N/A", "n/a", "na", "null", "NULL", "None", "none")
+# Cells that stand for a missing, non-finite or over-range value: NULL_TOKENS are what pyarrow is told
+# to read as missing (stored as NaN with a clip flag, like the SCPI values); "inf" it parses as a
+# number, flagged later the same way. Besides the usual spellings: the C runtime's old printf forms
+# ("1.#INF", "-1.#IND"), a spreadsheet's "#N/A", and the overload marks of meters and loggers
+# ("OL", "OVER"; common practice, no source).
+NULL_TOKENS = ("", "nan", "NaN", "NAN", "-nan", "+nan", "-NaN", "+NaN", "NA", "N/A", "n/a", "na", "null", "NULL",
+               "None", "none", "#N/A", "1.#INF", "-1.#INF", "1.#IND", "-1.#IND", "1.#QNAN", "-1.#QNAN",
+               "OL", "+OL", "-OL", "OVER", "+OVER", "-OVER", "Over", "OVLD", "-OVLD", "+OVLD")
+# The same, lower case, for sniffing; the inf spellings pyarrow reads as numbers.
+NA_TOKENS = frozenset({t.lower() for t in NULL_TOKENS} | {"inf", "+inf", "-inf", "infinity", "+infinity",
+                                                          "-infinity"})
 
 NUMBER_DOT = re.compile(r"[-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?\Z")
 NUMBER_ANY = re.compile(r"[-+]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][-+]?\d+)?\Z")
+# A value cell to the sniffer: a number or a time stamp (date and time, time of day, elapsed time).
+VALUE_DOT = re.compile(rf"(?:{NUMBER_DOT.pattern})|(?:{STAMP_CELL})")
+VALUE_ANY = re.compile(rf"(?:{NUMBER_ANY.pattern})|(?:{STAMP_CELL})")
 
 # Delimiters tried, in order of preference on a tie; " " means any run of spaces and tabs.
 DELIMITERS = (",", ";", "\t", " ")
@@ -65,14 +76,20 @@ INDEX_UNIT_WORDS = frozenset({"sequence", "index", "sample", "samples", "no", "n
                               "points", "pt", "pts", "count", "n"})
 
 
+# A volt or ampere unit marked as a DC reading, as data loggers write them ("VDC", "mV DC", "Adc").
+_DC = re.compile(r"^(.*[VA])\s*(?:DC|dc|Dc)$")
+
+
 def known_unit(text: str) -> tuple[str, float] | None:
     """(SI base, factor) for a unit labtool knows, else None; degrees Celsius are ("°C", 1.0)."""
-    if _CELSIUS.match(text.strip()):
+    text = text.strip()
+    if _CELSIUS.match(text):
         return "°C", 1.0
     if "°" in text or "℃" in text:
         return None  # "m°C" and the like: no prefixed temperatures
+    dc = _DC.match(text)
     try:
-        return parse_unit(text)
+        return parse_unit(dc.group(1) if dc else text)
     except UsageError:
         return None
 
@@ -200,13 +217,30 @@ def _leading_empty(sample: Sequence[Sequence[str]], n_columns: int) -> int:
     return skip
 
 
-def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT) -> TablePosition | None:
+def normal_key(text: str) -> str:
+    """A preamble key or column name compared loosely: ``Horizontal Units`` → ``horizontal_units``."""
+    return re.sub(r"[^0-9a-z#]+", "_", text.lower()).strip("_")
+
+
+# Preamble keys that give the unit of the time axis, and of the channels (common practice, no source).
+HORIZONTAL_UNIT_KEYS = frozenset({"hunit", "hunits", "h_unit", "h_units", "horizontal_unit", "horizontal_units",
+                                  "x_unit", "x_units", "xunit", "xunits", "time_unit", "time_units"})
+VERTICAL_UNIT_KEYS = frozenset({"vunit", "vunits", "v_unit", "v_units", "vertical_unit", "vertical_units",
+                                "y_unit", "y_units", "yunit", "yunits", "unit", "units"})
+# Preamble keys whose per-channel values name the channels.
+CHANNEL_NAME_KEYS = frozenset({"source", "sources", "channel", "channels", "trace", "traces", "waveform", "name",
+                               "names", "label", "labels", "signal", "signals"})
+
+
+def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) -> TablePosition | None:
     """Where the data starts, and the header/units rows just above it.
 
-    The field count is the most common one among all-numeric rows (ties: the earliest row's), so a
+    The field count is the most common one among all-value rows (ties: the earliest row's), so a
     bad cell or a cut-off line later in the data does not move the start. The data starts at the
-    first all-numeric row of that count followed by a mostly-numeric row (or by nothing), or higher
-    up where key/value cells stand beside the data in columns that are empty further down.
+    first all-value row of that count followed by a mostly-value row (or by nothing). Leading and
+    trailing empty columns are judged on the last data rows of the head: key/value cells written
+    beside the data fill leading columns of the first rows only (with gaps), and those rows are data
+    too, as far up as their data columns hold values.
     """
     nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
     numeric = [i for i in nonblank if _numericish(rows[i], number)]
@@ -226,43 +260,48 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT)
                 break
     if pos is None:
         return None
-    after = nonblank[pos:]
-    n_good = sum(1 for j in after if len(rows[j]) == n_fields and is_data_row(rows[j], number))
-    sample = [rows[j] for j in after[:SAMPLE_ROWS] if len(rows[j]) == n_fields]
+    full = [j for j in nonblank[pos:] if len(rows[j]) == n_fields and is_data_row(rows[j], number)]
+    sample = [rows[j] for j in full[-SAMPLE_ROWS:]]
     n_columns = max(_width(r) for r in sample)
     skip = _leading_empty(sample, n_columns)
 
     def data_cells(k: int) -> list[str]:
         return list(rows[k][skip:n_columns])
 
-    side: list[int] = []
-    if skip >= 2:  # key and value cells beside the first data rows (empty in the rest)
-        while pos > 0:
-            k = nonblank[pos - 1]
-            if not (len(rows[k]) == n_fields and is_data_row(data_cells(k), number)
-                    and sum(1 for c in rows[k][:skip] if _clean(c)) >= 2):
-                break
-            side.insert(0, k)
+    def keyed(k: int) -> bool:  # a row with cells in the leading columns the data leaves empty
+        return any(_clean(c) for c in rows[k][:skip])
+
+    def beside(k: int) -> bool:  # a data row, whatever stands in the leading columns
+        return len(rows[k]) == n_fields and is_data_row(data_cells(k), number)
+
+    side: tuple[int, ...] = ()
+    if skip >= 2:  # key and value cells beside the data rows (one key column is a per-channel preamble)
+        while pos > 0 and beside(nonblank[pos - 1]):
             pos -= 1
+        side = tuple(k for k in nonblank[pos:] if keyed(k) and beside(k))
     start = nonblank[pos]
+    n_good = sum(1 for j in nonblank[pos:] if len(rows[j]) == n_fields and is_data_row(data_cells(j), number))
 
     def header_like(k: int, *, loose: bool) -> bool:
         """Names over the data columns; ``loose`` (a units row follows): numbers allowed ("1", "2")."""
         row = rows[k]
-        if _is_key_value_comment(row) or is_data_row(row, number):
+        if _is_key_value_comment(row) or is_data_row(row, number) or keyed(k):
             return False
         if not (len(row) == n_fields or _width(row) >= n_columns):
             return False
         cells = data_cells(k)
+        if _is_units_row(cells):  # "VUnit,V,V" or "s,V,V": units, never names
+            return False
         if loose:
             return any(_clean(c) and not number.match(_clean(c)) for c in cells)
         if _channel_numbers(cells, number) and len(row) == n_fields >= 3:
             return True  # "Time,1,2": channel numbers in a full-width row whose first cell is text
-        return _is_text_row(cells, number) and not _is_units_row(cells)
+        return _is_text_row(cells, number)
 
     above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
     header = units = None
-    if len(above) == 2 and _is_units_row(data_cells(above[1])) and header_like(above[0], loose=True):
+    if (len(above) == 2 and not keyed(above[1]) and _is_units_row(data_cells(above[1]))
+            and header_like(above[0], loose=True)):
         header, units = above
     elif above and header_like(above[-1], loose=False):
         header = above[-1]
@@ -282,26 +321,55 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = NUMBER_DOT)
             elif k < n_fields and not extras:
                 named = k + 1
         n_columns = named
-    return TablePosition(header, units, start, n_fields, n_columns, n_good, skip, tuple(side), tuple(extras))
+    return TablePosition(header, units, start, n_fields, n_columns, n_good, skip, side, tuple(extras))
 
 
 def _keyed_name_rows(rows, candidates: list[int], data_cells, number: re.Pattern) -> tuple[int | None, int | None]:
-    """Rows with a key in the first column whose other cells name the channels or give their units
-    (``Source,CH1,CH2``; ``VUnit,V,A``): the last of each kind above the data."""
-    header = units = None
+    """The rows above the data that name the channels and give their units, in a table whose first
+    column is empty: names in a row with an empty first cell (``,CH1,CH2``), else in a row keyed like
+    ``Source``, else in the last other keyed row of distinct texts; units in the last keyed units row
+    that is not the time axis's (``VUnit,V,A``, not ``HUnit,s,s``)."""
+    names: dict[int, int] = {}  # preference (lower wins) → row
+    units = None
     for k in candidates:
         cells = [_clean(c) for c in data_cells(k)]
-        if not _clean(rows[k][0]) or not any(cells):
+        key = normal_key(_clean(rows[k][0]))
+        filled = [c for c in cells if c]
+        if not filled:
             continue
         if _is_units_row(cells):
-            units = k
-        elif _is_text_row(cells, number) and len(set(c for c in cells if c)) == len([c for c in cells if c]):
-            header = k
-    return header, units
+            if key and key not in HORIZONTAL_UNIT_KEYS:
+                units = k
+        elif _is_text_row(cells, number) and len(set(filled)) == len(filled):
+            names[0 if not key else 1 if key in CHANNEL_NAME_KEYS else 2] = k
+    return (names[min(names)] if names else None), units
 
 
-def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition) -> tuple[list[str], list[str | None]]:
-    """Names (units stripped) and unit texts of the table's columns; unnamed columns get ``columnK``."""
+def unique_names(names: list[str]) -> tuple[list[str], list[str]]:
+    """Repeated column names made unique (the second ``Ampl`` is ``Ampl_2``, skipping names already
+    taken), and one warning per repeated name."""
+    taken = set(names)
+    out: list[str] = []
+    renamed: dict[str, list[str]] = {}
+    for name in names:
+        if name not in out and name not in renamed:
+            out.append(name)
+            continue
+        group = renamed.setdefault(name, [name])
+        k = len(group) + 1
+        while f"{name}_{k}" in taken:
+            k += 1
+        group.append(f"{name}_{k}")
+        taken.add(group[-1])
+        out.append(group[-1])
+    return out, [f"{len(group)} columns named {name!r}: read as {', '.join(map(repr, group))}"
+                 for name, group in renamed.items()]
+
+
+def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition
+                           ) -> tuple[list[str], list[str | None], list[str]]:
+    """Names (units stripped, repeated ones made unique) and unit texts of the table's columns, and a
+    warning per repeated name; unnamed columns get ``columnK``."""
     n = where.n_columns
     header = list(rows[where.header]) if where.header is not None else []
     header += [""] * (n - len(header))
@@ -316,7 +384,8 @@ def column_names_and_units(rows: Sequence[Sequence[str]], where: TablePosition) 
             u = strip_unit_brackets(row[k])
             if u and u != "-":
                 units[k] = u
-    return names, units
+    names[where.skip:], repeated = unique_names(names[where.skip:])
+    return names, units, repeated
 
 
 # -- preamble ------------------------------------------------------------------------------------
@@ -364,6 +433,11 @@ class TextLayout:
     preamble: dict
     notes: tuple[str, ...]
     columns: tuple[int, ...] = ()  # field index of each named column (data columns may not start at 0)
+    # Time-stamp columns (dates and times, clock or elapsed times; see ``stamps``): (field index, field
+    # index of a separate time-of-day column or None), read as text and turned into seconds.
+    stamps: tuple[tuple[int, int | None], ...] = ()
+    padded_quotes: bool = False  # blanks between a delimiter and a quote (`1.0, "2.0"`): removed before parsing
+    warnings: tuple[str, ...] = ()  # repeated column names made unique
 
 
 def decode_line(raw: bytes) -> str:
@@ -420,11 +494,21 @@ def split_head(data: bytes, max_lines: int = HEAD_LINES, max_bytes: int = HEAD_B
     return lines
 
 
+_QUOTED_OR_BARE = re.compile(r'"[^"]*"|\S+')
+
+
 def split_fields(text: str, delimiter: str) -> list[str]:
+    """The cells of a line; a quoted cell may hold the delimiter (``"Time, s"``), and blanks after a
+    delimiter before a quote are skipped."""
     if delimiter != " ":
-        return text.split(delimiter)
+        if '"' not in text:
+            return text.split(delimiter)
+        if text.count('"') % 2:  # an unbalanced quote: not a quoted line, split as written
+            return text.split(delimiter)
+        return next(csv.reader([text], delimiter=delimiter, skipinitialspace=True))
     tokens: list[str] = []
-    for tok in text.split():  # "Time (s)" stays one header cell; a units row "(s) (V)" stays two
+    for tok in (_QUOTED_OR_BARE.findall(text) if '"' in text else text.split()):
+        # "Time (s)" stays one header cell; a units row "(s) (V)" stays two
         if tokens and tok[0] in "[(" and tokens[-1][0] not in "[(" and not NUMBER_ANY.match(tok):
             tokens[-1] += " " + tok
         else:
@@ -455,21 +539,53 @@ def sniff(data: bytes, path: str) -> TextLayout:
     if where.n_columns > MAX_COLUMNS:
         raise InputError(path, f"{where.n_columns} columns; at most {MAX_COLUMNS} are read (split the export)",
                          line=(where.header if where.header is not None else where.data) + 1)
-    names, units = column_names_and_units(rows, where)
+    names, units, repeated = column_names_and_units(rows, where)
     body_offset = lines[where.data][0]
     pairs, notes = parse_preamble([text for k, (_, text) in enumerate(lines[:where.data])
                                    if k not in (where.header, where.units)], delimiter)
-    for k in where.side_rows:  # key/value cells beside the first data rows
+    for k in where.side_rows:  # key/value cells beside the data rows
         side_pairs, side_notes = parse_preamble([delimiter.join(rows[k][:where.skip])], delimiter)
         pairs.update(side_pairs)
         notes += side_notes
     pairs.update(where.extras)
-    decimal = _decimal_mark(data, body_offset, [rows[k] for k in range(where.data, len(rows))], delimiter)
+    body = [rows[k] for k in range(where.data, len(rows)) if len(rows[k]) == where.n_fields]
+    decimal = _decimal_mark(data, body_offset, body, delimiter)
+    columns = list(range(where.skip, where.n_columns))
+    names, units = names[where.skip:], units[where.skip:]
+    stamps = _stamp_columns(body, columns, names, units)
+    padded = delimiter != " " and any(_PADDED_QUOTE[delimiter].search(text) for _, text in lines[where.data:])
     return TextLayout(
-        delimiter=delimiter, decimal=decimal, names=tuple(names[where.skip:]), units=tuple(units[where.skip:]),
+        delimiter=delimiter, decimal=decimal, names=tuple(names), units=tuple(units),
         header_line=None if where.header is None else where.header + 1,
         first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
-        preamble=pairs, notes=tuple(notes), columns=tuple(range(where.skip, where.n_columns)))
+        preamble=pairs, notes=tuple(notes), columns=tuple(columns), stamps=stamps, padded_quotes=padded,
+        warnings=tuple(repeated))
+
+
+# Blanks between a delimiter and an opening quote, or a closing quote and a delimiter or the line end.
+_PADDED_QUOTE = {d: re.compile(rf'{re.escape(d)} +"|" +(?:{re.escape(d)}|$)') for d in DELIMITERS if d != " "}
+
+
+def _stamp_columns(body: list[list[str]], columns: list[int], names: list[str],
+                   units: list[str | None]) -> tuple[tuple[int, int | None], ...]:
+    """The time-stamp columns among the data columns (lists edited in place): a date column followed
+    by a time-of-day column becomes one, named by both headers; every stamp column is in seconds."""
+    found: list[tuple[int, int | None]] = []
+    p = 0
+    while p < len(columns):
+        kind = stamp_kind([_clean(r[columns[p]]) for r in body])
+        if kind == "date" and p + 1 < len(columns):
+            if stamp_kind([_clean(r[columns[p + 1]]) for r in body]) == "clock":
+                found.append((columns[p], columns.pop(p + 1)))
+                second = names.pop(p + 1)
+                units.pop(p + 1)
+                names[p] = f"{names[p]} {second}" if not re.fullmatch(r"column\d+", second) else names[p]
+                units[p] = "s"
+        elif kind in ("datetime", "clock"):
+            found.append((columns[p], None))
+            units[p] = "s"
+        p += 1
+    return tuple(found)
 
 
 def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], TablePosition] | None:
@@ -477,7 +593,7 @@ def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], Tab
     best = None
     for rank, delimiter in enumerate(DELIMITERS):
         rows = [split_fields(text, delimiter) for _, text in lines]
-        where = locate_table(rows, NUMBER_DOT if delimiter == "," else NUMBER_ANY)
+        where = locate_table(rows, VALUE_DOT if delimiter == "," else VALUE_ANY)
         if where is None:
             continue
         score = (where.header is not None, where.n_good, where.n_columns, -rank)
