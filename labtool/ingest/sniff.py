@@ -450,15 +450,29 @@ def decode_line(raw: bytes) -> str:
     return raw.decode("latin-1")
 
 
+def _utf16_without_mark(head: bytes) -> str | None:
+    """"utf-16-le" or "utf-16-be" when the head reads as Western text in UTF-16 without a byte-order
+    mark: a NUL as every other byte, never on the other side (ASCII characters), else None."""
+    head = head[:4096 - 4096 % 2]
+    if len(head) < 8:
+        return None
+    even, odd = head[0::2], head[1::2]
+    for encoding, zeros, chars in (("utf-16-le", odd, even), ("utf-16-be", even, odd)):
+        if zeros.count(0) >= 0.9 * len(zeros) and chars.count(0) == 0:
+            return encoding
+    return None
+
+
 def normalise_encoding(data: bytes, path: str) -> bytes:
-    """Drop a UTF-8 byte-order mark; re-encode UTF-16 (with its mark) as UTF-8."""
+    """Drop a UTF-8 byte-order mark; re-encode UTF-16 (with its mark, or plainly UTF-16 without) as UTF-8."""
     if data.startswith(b"\xef\xbb\xbf"):
         return data[3:]
     if data.startswith((b"\xff\xfe\x00\x00", b"\x00\x00\xfe\xff")):  # before UTF-16: same first two bytes
         raise InputError(path, "UTF-32 text: save the export as UTF-8 (or UTF-16 with a byte-order mark)")
-    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+    encoding = "utf-16" if data.startswith((b"\xff\xfe", b"\xfe\xff")) else _utf16_without_mark(data)
+    if encoding is not None:
         try:
-            return data.decode("utf-16").encode("utf-8")
+            return data.decode(encoding).encode("utf-8")
         except UnicodeDecodeError as exc:
             raise InputError(path, f"invalid UTF-16 text at byte {exc.start}") from None
     return data

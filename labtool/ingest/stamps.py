@@ -94,7 +94,7 @@ def parse_stamps(texts: pa.Array) -> StampSeconds:
     """Stamp cells (strings, nulls for empty cells) → seconds from the first one."""
     texts = pc.utf8_trim_whitespace(texts.cast(pa.string()))
     parts = pc.extract_regex(texts, _PARTS.pattern)
-    empty = (pc.is_null(texts) | pc.equal(texts, "")).to_numpy(zero_copy_only=False)
+    empty = pc.fill_null(pc.equal(texts, ""), True).to_numpy(zero_copy_only=False)
     matched = parts.is_valid().to_numpy(zero_copy_only=False)
     hours, minutes = _numbers(parts, "h"), _numbers(parts, "mi")
     seconds = _numbers(parts, "s", pa.float64())
