@@ -24,7 +24,7 @@ from labtool.errors import InputError
 from labtool.ingest.footer import KEPT_LINES, find_footer
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.sniff import (DELIMITER_NAMES, MAX_DECOMPRESSED_BYTES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT,
-                                  TextLayout, check_line_lengths, decode_line, normalise_encoding, shorten, sniff,
+                                  TextLayout, check_line_lengths, decode_line, drop_padding, normalise_encoding, shorten, sniff,
                                   split_fields)
 from labtool.ingest.stamps import parse_stamps
 from labtool.ingest.table import RawTable, build_capture
@@ -182,7 +182,7 @@ def _parse_text(path: str, data: bytes) -> RawTable:
     if data.startswith(GZIP_MAGIC):
         data = gunzip(data, path)
         importer = "csv+gzip"
-    data = normalise_encoding(data, path)
+    data = drop_padding(normalise_encoding(data, path))
     check_line_lengths(data, path)
     layout = sniff(data, path)
     footer = find_footer(data, layout)
@@ -191,8 +191,8 @@ def _parse_text(path: str, data: bytes) -> RawTable:
     header_line = layout.header_line or layout.first_data_line
     metadata = {**layout.preamble, **body.metadata}
     warnings = list(layout.warnings)
-    if footer is not None:
-        first = _line_number(data, footer.offset)
+    if footer is not None and footer.lines:
+        first = _line_number(data, footer.first_offset)
         count = len(footer.lines)
         warnings.append(f"{count} line{'s' if count != 1 else ''} after the data (from line {first}: "
                         f"{shorten(footer.lines[0])!r}) read as a footer, not as samples")

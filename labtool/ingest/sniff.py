@@ -137,7 +137,8 @@ def _width(row: Sequence[str]) -> int:
     return n
 
 
-def _clean(cell: str) -> str:
+def clean_cell(cell: str) -> str:
+    """A cell without blanks and quotes around it."""
     return cell.strip().strip('"').strip()
 
 
@@ -145,7 +146,7 @@ def is_data_row(row: Sequence[str], number: re.Pattern) -> bool:
     """At least one number and otherwise only missing-value tokens."""
     seen = False
     for cell in row:
-        c = _clean(cell)
+        c = clean_cell(cell)
         if number.match(c):
             seen = True
         elif c.lower() not in NA_TOKENS:
@@ -154,7 +155,7 @@ def is_data_row(row: Sequence[str], number: re.Pattern) -> bool:
 
 
 def _is_text_row(row: Sequence[str], number: re.Pattern) -> bool:
-    cells = [_clean(c) for c in row]
+    cells = [clean_cell(c) for c in row]
     return any(cells) and not any(number.match(c) for c in cells)
 
 
@@ -167,7 +168,7 @@ def _is_units_row(cells: Sequence[str]) -> bool:
 
 def _channel_numbers(cells: Sequence[str], number: re.Pattern) -> bool:
     """A text first cell, the others text or small whole numbers (channel numbers, not values)."""
-    clean = [_clean(c) for c in cells]
+    clean = [clean_cell(c) for c in cells]
     if not clean or not clean[0] or number.match(clean[0]):
         return False
     numbers = [c for c in clean[1:] if number.match(c)]
@@ -203,7 +204,7 @@ class TablePosition:
 
 def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
     """Mostly numbers: a data row, or one with a few bad cells that the parser will point at."""
-    cells = [_clean(c) for c in row]
+    cells = [clean_cell(c) for c in row]
     numbers = sum(1 for c in cells if number.match(c))
     texts = sum(1 for c in cells if not number.match(c) and c.lower() not in NA_TOKENS)
     return numbers >= 1 and numbers >= texts
@@ -212,7 +213,7 @@ def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
 def _leading_empty(sample: Sequence[Sequence[str]], n_columns: int) -> int:
     """Leading columns empty in every sampled data row (at most all but one)."""
     skip = 0
-    while skip < n_columns - 1 and all(skip >= len(r) or not _clean(r[skip]) for r in sample):
+    while skip < n_columns - 1 and all(skip >= len(r) or not clean_cell(r[skip]) for r in sample):
         skip += 1
     return skip
 
@@ -269,7 +270,7 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
         return list(rows[k][skip:n_columns])
 
     def keyed(k: int) -> bool:  # a row with cells in the leading columns the data leaves empty
-        return any(_clean(c) for c in rows[k][:skip])
+        return any(clean_cell(c) for c in rows[k][:skip])
 
     def beside(k: int) -> bool:  # a data row, whatever stands in the leading columns
         return len(rows[k]) == n_fields and is_data_row(data_cells(k), number)
@@ -293,20 +294,25 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
         if _is_units_row(cells):  # "VUnit,V,V" or "s,V,V": units, never names
             return False
         if loose:
-            return any(_clean(c) and not number.match(_clean(c)) for c in cells)
+            return any(clean_cell(c) and not number.match(clean_cell(c)) for c in cells)
         if _channel_numbers(cells, number) and len(row) == n_fields >= 3:
             return True  # "Time,1,2": channel numbers in a full-width row whose first cell is text
         return _is_text_row(cells, number)
 
+    def units_like(k: int) -> bool:
+        return not keyed(k) and _width(rows[k]) >= n_columns and _is_units_row(data_cells(k))
+
     above = nonblank[pos - 2:pos] if pos >= 2 else nonblank[:pos]
     header = units = None
-    if (len(above) == 2 and not keyed(above[1]) and _is_units_row(data_cells(above[1]))
-            and header_like(above[0], loose=True)):
+    if len(above) == 2 and units_like(above[1]) and header_like(above[0], loose=True):
         header, units = above
     elif above and header_like(above[-1], loose=False):
         header = above[-1]
+    elif above and units_like(above[-1]):  # units without names ("Second,Volt,Volt")
+        units = above[-1]
     if skip == 1 and header is None:  # an empty key column: names and units are keyed rows above the data
-        header, units = _keyed_name_rows(rows, nonblank[:pos], data_cells, number)
+        header, keyed_units = _keyed_name_rows(rows, nonblank[:pos], data_cells, number)
+        units = units if units is not None else keyed_units
     extras: list[tuple[str, str]] = []
     if header is not None:
         head = rows[header]
@@ -314,10 +320,10 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
         under += [""] * (len(head) - len(under))
         named = n_columns
         for k in range(n_columns, len(head)):
-            if not _clean(head[k]):
+            if not clean_cell(head[k]):
                 continue
-            if number.match(_clean(under[k])):  # "Start" over "-1e-05": a time-base value, not a column
-                extras.append((_clean(head[k]), _clean(under[k])))
+            if number.match(clean_cell(under[k])):  # "Start" over "-1e-05": a time-base value, not a column
+                extras.append((clean_cell(head[k]), clean_cell(under[k])))
             elif k < n_fields and not extras:
                 named = k + 1
         n_columns = named
@@ -332,8 +338,8 @@ def _keyed_name_rows(rows, candidates: list[int], data_cells, number: re.Pattern
     names: dict[int, int] = {}  # preference (lower wins) → row
     units = None
     for k in candidates:
-        cells = [_clean(c) for c in data_cells(k)]
-        key = normal_key(_clean(rows[k][0]))
+        cells = [clean_cell(c) for c in data_cells(k)]
+        key = normal_key(clean_cell(rows[k][0]))
         filled = [c for c in cells if c]
         if not filled:
             continue
@@ -402,14 +408,14 @@ def parse_preamble(lines: Sequence[str], delimiter: str) -> tuple[dict[str, str]
             continue
         pair = None
         if delimiter != " " and delimiter in text:
-            fields = [_clean(f) for f in text.split(delimiter)]
+            fields = [clean_cell(f) for f in text.split(delimiter)]
             rest = [f for f in fields[1:] if f]
             if fields[0] and rest:  # one value per channel, all equal ("HResolution,2e-8,2e-8"): that value
                 pair = fields[0].rstrip(":=").strip(), rest[0] if len(set(rest)) == 1 else " ".join(rest)
         if pair is None:
             m = _KEY_VALUE.match(text)
             if m:
-                pair = _clean(m.group(1)), _clean(m.group(2))
+                pair = clean_cell(m.group(1)), clean_cell(m.group(2))
         if pair and pair[0]:
             pairs[pair[0]] = pair[1]
         else:
@@ -461,6 +467,11 @@ def _utf16_without_mark(head: bytes) -> str | None:
         if zeros.count(0) >= 0.9 * len(zeros) and chars.count(0) == 0:
             return encoding
     return None
+
+
+def drop_padding(data: bytes) -> bytes:
+    """Without the NUL bytes or the DOS end-of-file mark (Ctrl-Z) that some instruments pad a file with."""
+    return data.rstrip(b"\x00\x1a") if data[-1:] in (b"\x00", b"\x1a") else data
 
 
 def normalise_encoding(data: bytes, path: str) -> bytes:
@@ -587,9 +598,9 @@ def _stamp_columns(body: list[list[str]], columns: list[int], names: list[str],
     found: list[tuple[int, int | None]] = []
     p = 0
     while p < len(columns):
-        kind = stamp_kind([_clean(r[columns[p]]) for r in body])
+        kind = stamp_kind([clean_cell(r[columns[p]]) for r in body])
         if kind == "date" and p + 1 < len(columns):
-            if stamp_kind([_clean(r[columns[p + 1]]) for r in body]) == "clock":
+            if stamp_kind([clean_cell(r[columns[p + 1]]) for r in body]) == "clock":
                 found.append((columns[p], columns.pop(p + 1)))
                 second = names.pop(p + 1)
                 units.pop(p + 1)
@@ -607,7 +618,7 @@ def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], Tab
     best = None
     for rank, delimiter in enumerate(DELIMITERS):
         rows = [split_fields(text, delimiter) for _, text in lines]
-        where = locate_table(rows, VALUE_DOT if delimiter == "," else VALUE_ANY)
+        where = locate_table(rows, VALUE_ANY)  # a comma inside a comma-delimited cell was quoted
         if where is None:
             continue
         score = (where.header is not None, where.n_good, where.n_columns, -rank)
@@ -617,11 +628,11 @@ def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], Tab
 
 
 def _decimal_mark(data: bytes, body_offset: int, sample: list[list[str]], delimiter: str) -> str:
-    if delimiter == ",":
-        return "."
-    cells = [c for row in sample for c in row if NUMBER_ANY.match(_clean(c))]
+    """The majority mark of the head's numbers (the parser then names the first cell written the other
+    way); in a comma-delimited file a decimal comma can only stand in quoted cells ("0,5")."""
+    cells = [c for row in sample for c in row if NUMBER_ANY.match(clean_cell(c))]
     dots, commas = sum("." in c for c in cells), sum("," in c for c in cells)
-    if dots or commas:  # the majority; the parser then names the first cell written the other way
+    if dots or commas or delimiter == ",":
         return "," if commas > dots else "."
     # Only integers in the head (a supply still at 0): the rest of the body decides.
     return "," if data.find(b",", body_offset) >= 0 else "."

@@ -237,9 +237,11 @@ def _length_claim(table: RawTable) -> tuple[str, int] | None:
     """The first preamble line that says how many samples the record holds (Record Length, #Samples …)."""
     for key, value in table.metadata.items():
         if _key(split_name_unit(key)[0]) in _LENGTH_KEYS:
-            m = re.fullmatch(r"\s*(\d+)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*", value, re.IGNORECASE)
-            if m:
-                return key, int(m.group(1))
+            # "2001", "2001 Points", "2.001000e+03" (a count printed like a float)
+            m = re.fullmatch(r"\s*(\d+(?:\.\d*)?(?:[eE]\+?\d+)?)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*",
+                             value, re.IGNORECASE)
+            if m and float(m.group(1)).is_integer():
+                return key, int(float(m.group(1)))
     return None
 
 
@@ -424,7 +426,8 @@ def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[i
     A column of consecutive integers is an index, whatever its name, when the preamble gives the interval
     (so ``x`` or ``Time`` holding 0, 1, 2 … is never read as whole seconds). A table without a header
     takes its first column as time when it increases throughout. Beside a time column, a column of
-    consecutive integers named like an index (``Scan``, ``Sample #``) is a scan number, not a channel.
+    consecutive integers named like an index (``Scan``, ``Sample #``) or not named at all (the row
+    numbers a data-frame library writes first) is an index, not a channel.
     """
     path = table.source_path
     keys = [_key(name) for name in table.names]
@@ -436,13 +439,17 @@ def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[i
                          **table.place(None, t_col))
     if t_col is not None and _is_index(table.columns[t_col]) and _sample_interval(table) is not None:
         return None, t_col
-    index_col = next((k for k, key in enumerate(keys) if k != t_col and bases[k] is None
-                      and (_is_index_name(key) or is_index_unit(table.units[k])) and _is_index(table.columns[k])),
-                     None)
+    headerless = all(re.fullmatch(r"column\d+", name) for name in table.names)
+
+    def index_like(k: int) -> bool:  # named like an index, marked so in the units row, or unnamed beside names
+        unnamed = not headerless and re.fullmatch(r"column\d+|unnamed_\d+", keys[k]) is not None
+        return _is_index_name(keys[k]) or is_index_unit(table.units[k]) or unnamed
+
+    index_col = next((k for k in range(len(keys)) if k != t_col and bases[k] is None and index_like(k)
+                      and _is_index(table.columns[k])), None)
     if t_col is None:
         if index_col is not None:
             return None, index_col
-        headerless = all(re.fullmatch(r"column\d+", name) for name in table.names)
         first = table.columns[0]
         if headerless and len(table.names) >= 2 and np.isfinite(first).all() and (np.diff(first) > 0).all():
             if _is_index(first) and _sample_interval(table) is not None:

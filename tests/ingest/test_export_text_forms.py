@@ -194,3 +194,70 @@ def test_a_bare_sample_interval_is_in_the_horizontal_unit(tmp_path):
                              + cells(s, o)))
     assert cap.time.dt_s == pytest.approx(DT, rel=1e-15) and cap.time.t0_s == pytest.approx(T0, rel=1e-15)
     assert cap.time.n == N
+
+
+def test_empty_spreadsheet_rows_after_the_data_are_cut_without_a_word(tmp_path):
+    t, s, o = startup()
+    (cap,) = read_path(write(tmp_path, "rows.csv", "Time,VDD,VREF\n" + cells(t, s, o) + ",,\n,,\n ,, \n"))
+    assert_time_base(cap)
+    assert_values(cap, s, o)
+    assert cap.provenance.warnings == []
+
+
+def test_empty_rows_between_the_data_and_a_footer(tmp_path):
+    t, s, o = startup()
+    (cap,) = read_path(write(tmp_path, "rows.csv", "Time,VDD,VREF\n" + cells(t, s, o) + ",,\n,,\nEnd of data,,\n"))
+    assert_values(cap, s, o)
+    assert cap.provenance.warnings[0].startswith(f"1 line after the data (from line {N + 4}: 'End of data,,')")
+
+
+@pytest.mark.parametrize("padding", [b"\x1a", b"\x00" * 300])
+def test_end_of_file_padding_is_no_content(tmp_path, padding):
+    t, s, o = startup()
+    data = ("Time,VDD,VREF\r\n" + cells(t, s, o).replace("\n", "\r\n")).encode() + padding
+    (cap,) = read_path(write_bytes(tmp_path, "pad.csv", data))
+    assert_values(cap, s, o)
+    assert cap.provenance.warnings == []
+
+
+def test_quoted_decimal_commas_in_a_comma_delimited_file(tmp_path):
+    t, s, o = startup()
+    body = cells(t, s, o, fmt=lambda v: repr(v).replace(".", ","), quote=True)
+    (cap,) = read_path(write(tmp_path, "qc.csv", '"Time","CH1","CH2"\n' + body))
+    assert_time_base(cap)
+    assert_values(cap, s, o)
+    assert "comma-delimited, decimal comma" in cap.provenance.metadata["layout"]
+
+
+def test_a_spreadsheet_separator_line_first(tmp_path):
+    t, s, o = startup()
+    (cap,) = read_path(write(tmp_path, "sep.csv", "sep=;\nTime;VDD;VREF\n" + cells(t, s, o, delimiter=";")))
+    assert_time_base(cap)
+    assert_values(cap, s, o)
+
+
+@pytest.mark.parametrize("first", ["", "Unnamed: 0"])
+def test_row_numbers_a_data_frame_writes_first_are_no_channel(tmp_path, first):
+    # An unnamed first column of 0, 1, 2 … (a data-frame library's row index) beside a time column:
+    # left out, so it can never be taken for the supply by its shape.
+    t, s, o = startup()
+    body = "".join(f"{k},{t[k].item()!r},{s[k].item()!r},{o[k].item()!r}\n" for k in range(N))
+    (cap,) = read_path(write(tmp_path, "frame.csv", f"{first},Time,CH1,CH2\n" + body))
+    assert_time_base(cap)
+    assert_values(cap, s, o)
+    assert [c.name for c in cap.channels] == ["CH1", "CH2"]
+
+
+def test_a_units_row_without_names(tmp_path):
+    t, s, o = startup()
+    (cap,) = read_path(write(tmp_path, "units.csv", "Second,Volt,Volt\n" + cells(t * 1.0, s, o)))
+    assert_time_base(cap)
+    assert_values(cap, s, o)
+    assert [c.unit for c in cap.channels] == ["V", "V"]
+    assert "Second" not in cap.provenance.metadata
+
+
+def test_a_record_length_printed_like_a_float_is_a_length_claim(tmp_path):
+    t, s, o = startup()
+    (cap,) = read_path(write(tmp_path, "rl.csv", "Record Length,2.000000e+03\nTime,CH1,CH2\n" + cells(t, s, o)))
+    assert cap.provenance.metadata["truncated"] == f"{N} of 2000 samples"
