@@ -24,8 +24,8 @@ from labtool.errors import InputError
 from labtool.ingest.footer import KEPT_LINES, find_footer
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.sniff import (DELIMITER_NAMES, MAX_DECOMPRESSED_BYTES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT,
-                                  TextLayout, check_line_lengths, decode_line, drop_padding, normalise_encoding, shorten, sniff,
-                                  split_fields)
+                                  TextLayout, check_line_lengths, clean_cell, decode_line, drop_padding,
+                                  normalise_encoding, shorten, sniff, split_fields)
 from labtool.ingest.stamps import parse_stamps
 from labtool.ingest.table import RawTable, build_capture
 
@@ -144,7 +144,7 @@ def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) 
             return InputError(path, f"{len(fields)} field{'s' if len(fields) != 1 else ''}, expected "
                                     f"{layout.n_fields} (line cut short or extra delimiter)", line=line)
         for k, name in zip(layout.columns, layout.names):
-            cell = fields[k].strip().strip('"').strip()
+            cell = clean_cell(fields[k])
             if k in stamps or cell.lower() in NA_TOKENS or number.match(cell):
                 continue
             hint = " (this file uses a decimal comma)" if layout.decimal == "," and NUMBER_DOT.match(cell) else ""

@@ -1,10 +1,11 @@
 """Find the table inside a text export: preamble, header, units row, delimiter and decimal mark.
 
-Bench scopes and lab scripts write many shapes: key/value preamble lines before the header
-(``Sample Interval,2e-9``, ``# lot: ZR24A``, ``Record Length: 100000``), comma, semicolon, tab or
-whitespace delimiters, a decimal comma, CRLF line ends, a byte-order mark, units in the header
-(``Time [s]``, ``CH1 (mV)``, ``t/ms``, ``vdd_v``) or in a row of their own. The sniffer looks only at
-the head of the file; the numeric body is parsed by a columnar reader (see ``csv_reader``).
+Bench scopes, data loggers and lab scripts write many shapes: key/value preamble lines before the
+header (``Sample Interval,2e-9``, ``# lot: ZR24A``, ``Record Length: 100000``) or beside the data,
+comma, semicolon, tab or whitespace delimiters, quoted cells, a decimal comma, CRLF line ends, a
+byte-order mark or UTF-16, units in the header (``Time [s]``, ``CH1 (mV)``, ``t/ms``, ``vdd_v``) or
+in a row of their own, time stamps as dates and clock times. The sniffer looks only at the head of
+the file; the body is parsed by a columnar reader (see ``csv_reader``), its end by ``footer``.
 
 :func:`locate_table` works on rows of text cells, so the XLSX reader uses it for sheets too.
 """

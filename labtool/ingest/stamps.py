@@ -7,8 +7,8 @@ Data loggers write the time of each scan as a calendar date and time of day (``2
 kept (``time_origin``), and a calendar start as ISO 8601 (``start_datetime``).
 
 A day/month order is read from the values: a first number above 12 is a day (day first), a second one
-above 12 is a day (month first); when neither occurs, dotted dates are day first and slashed ones
-month first, and the provenance says it was assumed. Time zones are ignored (times are relative).
+above 12 is a day (month first); when neither occurs, dotted and dashed dates are day first and
+slashed ones month first (common practice, no source), and the provenance says it was assumed. Time zones are ignored (times are relative).
 Clock times of day that fall back by more than half a day have passed midnight.
 
 The cell patterns are shared with the sniffer, which must tell a stamp column from text.
@@ -30,11 +30,8 @@ _ZONE = r"(?:\s*(?:Z|[+-]\d{2}:?\d{2}))?"
 # A date alone is a stamp only next to a clock column (``Date,Time``): the sniffer treats it as a value.
 STAMP_CELL = rf"(?:{_DATE}(?:(?:T|\s+){_CLOCK}{_ZONE})?|{_CLOCK}{_ZONE})\Z"
 DATE_CELL = re.compile(rf"{_DATE}\Z")
-CLOCK_CELL = re.compile(rf"{_CLOCK}\Z")
+CLOCK_CELL = re.compile(rf"{_CLOCK}{_ZONE}\Z")
 DATETIME_CELL = re.compile(rf"{_DATE}(?:T|\s+){_CLOCK}{_ZONE}\Z")
-# A date and a clock written in two whitespace-separated fields of a whitespace-delimited line.
-SPLIT_STAMP = re.compile(rb"(?<![\d:./-])(\d{4}-\d{1,2}-\d{1,2}|\d{1,2}[/.]\d{1,2}[/.]\d{2,4}) +(?=\d{1,3}:\d{2}:\d{2})")
-SPLIT_MERIDIEM = re.compile(rb"(\d:\d{2}:\d{2}(?:[.,]\d+)?) +(?=[AaPp][Mm](?![A-Za-z]))")
 
 _PARTS = re.compile(  # named parts of one stamp (RE2 syntax, for pyarrow.compute.extract_regex)
     r"^\s*(?:(?P<y>\d{4})[-/.](?P<mo>\d{1,2})[-/.](?P<d>\d{1,2})|(?P<a>\d{1,2})(?P<sep>[-/.])(?P<b>\d{1,2})[-/.]"
@@ -120,8 +117,9 @@ def parse_stamps(texts: pa.Array) -> StampSeconds:
             months = np.where(written, b if day_first else a, months)
             days = np.where(written, a if day_first else b, days)
             if assumed:
+                written_as = {".": "dotted", "-": "dashed", "/": "slashed"}[sep]
                 metadata["date_order"] = (f"{'day/month' if day_first else 'month/day'} (assumed: no day above 12; "
-                                          f"{'dotted' if day_first else 'slashed'} dates)")
+                                          f"{written_as} dates)")
         day_number, exists = _days(years, months, days)
         valid &= exists
         clock = hours * 3600.0 + minutes * 60.0 + seconds

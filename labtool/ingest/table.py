@@ -78,17 +78,15 @@ class RawTable:
     sheet_conditions: Conditions = field(default_factory=Conditions)  # above the preamble's
 
 
-_key = normal_key
-
-
 def _is_index_name(key: str) -> bool:
+    """``sample_#``, ``scan_no``, ``#``: only index words (a bare "#" is one)."""
     words = [w for w in re.split(r"[_#]+", key) if w] or ([key] if key else [])
     return bool(words) and all(w in INDEX_WORDS for w in words)
 
 
 def _meta_text(table: RawTable, keys: frozenset[str]) -> str | None:
     """The value of the first preamble key that is one of ``keys``."""
-    return next((value.strip() for key, value in table.metadata.items() if _key(key) in keys), None)
+    return next((value.strip() for key, value in table.metadata.items() if normal_key(key) in keys), None)
 
 
 def horizontal_unit(table: RawTable) -> str | None:
@@ -106,7 +104,7 @@ def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: boo
     """
     for key, value in table.metadata.items():
         name, key_unit = split_name_unit(key)
-        if _key(name) not in keys:
+        if normal_key(name) not in keys:
             continue
         text = value.strip()
         if "." not in text:
@@ -236,7 +234,7 @@ def _is_index(values: np.ndarray) -> bool:
 def _length_claim(table: RawTable) -> tuple[str, int] | None:
     """The first preamble line that says how many samples the record holds (Record Length, #Samples …)."""
     for key, value in table.metadata.items():
-        if _key(split_name_unit(key)[0]) in _LENGTH_KEYS:
+        if normal_key(split_name_unit(key)[0]) in _LENGTH_KEYS:
             # "2001", "2001 Points", "2.001000e+03" (a count printed like a float)
             m = re.fullmatch(r"\s*(\d+(?:\.\d*)?(?:[eE]\+?\d+)?)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*",
                              value, re.IGNORECASE)
@@ -430,7 +428,7 @@ def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[i
     numbers a data-frame library writes first) is an index, not a channel.
     """
     path = table.source_path
-    keys = [_key(name) for name in table.names]
+    keys = [normal_key(name) for name in table.names]
     t_col = next((k for k, b in enumerate(bases) if b == "s"), None)
     if t_col is None:
         t_col = next((k for k, key in enumerate(keys) if key in TIME_NAMES), None)

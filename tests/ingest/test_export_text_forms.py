@@ -127,7 +127,10 @@ def test_capital_e_plus_signs_inf_nan_and_blank_cells(tmp_path):
     t, s, o = startup()
     written = [f"{v:+.4E}" for v in s]  # "+1.8000E+00"
     missing = {5: "inf", 6: "-inf", 7: "nan", 8: "", 9: "NaN", 10: "1.#INF", 11: "OL", 12: "#N/A", 13: "Infinity"}
-    out = [missing.get(k, f"+{o[k].item()!r}" if o[k] > 0 else repr(o[k].item())) for k in range(N)]
+    # positive outputs with a leading "+", negative ones without the zero ("-.0023")
+    out = [missing.get(k, f"+{o[k].item()!r}" if o[k] > 0 else repr(o[k].item()).replace("-0.", "-."))
+           for k in range(N)]
+    assert any(v.startswith("-.") for v in out)
     body = "".join(f"{t[k]:.4E},{written[k]},{out[k]}\n" for k in range(N))
     (cap,) = read_path(write(tmp_path, "forms.csv", "Time,VDD,VREF\n" + body))
     assert_time_base(cap)

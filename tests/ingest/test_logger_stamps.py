@@ -113,11 +113,14 @@ def test_stamps_going_back_are_refused_with_their_line(tmp_path):
     assert str(info.value).endswith("back.csv:4 [Time]: time does not increase (-1 s after 0.125 s)")
 
 
-def test_a_workbook_with_date_and_time_cells(tmp_path):
+@pytest.mark.parametrize("kind", ["datetime", "time", "text"])
+def test_a_workbook_with_date_and_time_cells(tmp_path, kind):
     _, s, o = logger_values()
     moments = [START + dt.timedelta(seconds=SCAN_S * k) for k in range(N)]
+    cell = {"datetime": lambda m: m, "time": lambda m: m.time(), "text": lambda m: f"{m:%Y-%m-%d %H:%M:%S.%f}"}[kind]
     path = write_workbook(tmp_path / "log.xlsx", {"scan": [("Scan", "Time", "VDD", "VREF")] + [
-        (k + 1, m, s[k].item(), o[k].item()) for k, m in enumerate(moments)]})
+        (k + 1, cell(m), s[k].item(), o[k].item()) for k, m in enumerate(moments)]})
     (cap,) = read_path(path)
     assert_logger_capture(cap, s, o)
-    assert cap.provenance.metadata["start_datetime"] == "2026-11-02T13:01:02.125000"
+    if kind != "time":
+        assert cap.provenance.metadata["start_datetime"] == "2026-11-02T13:01:02.125000"
