@@ -198,21 +198,22 @@ def _parse_text(path: str, data: bytes) -> RawTable:
                         f"{shorten(footer.lines[0])!r}) read as a footer, not as samples")
         metadata["footer"] = " | ".join(footer.lines[:KEPT_LINES])
 
+    names = list(layout.names)  # build_capture may name header-less channels (in this list)
+
     def place(row: int | None, col: int | None) -> dict:
         where = {"line": header_line if row is None else line_of(row)}
         if col is not None:
-            where["field"] = table.names[col]  # as the capture names it (build_capture may name them)
+            where["field"] = names[col]
         return where
 
     preamble_lines = _preamble_lines(data, layout)
-    table = RawTable(
-        source_path=path, importer=importer, names=list(layout.names), units=list(layout.units),
+    return RawTable(
+        source_path=path, importer=importer, names=names, units=list(layout.units),
         columns=body.columns, place=place, metadata=metadata,
         metadata_place=lambda key: {"line": preamble_lines.get(key, 1)}, notes=list(layout.notes),
         layout=f"{DELIMITER_NAMES[layout.delimiter]}-delimited, decimal "
                f"{'comma' if layout.decimal == ',' else 'point'}, data from line {layout.first_data_line}",
         warnings=warnings)
-    return table
 
 
 def _line_number(data: bytes, offset: int) -> int:
