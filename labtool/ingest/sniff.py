@@ -282,7 +282,7 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
             pos -= 1
         side = tuple(k for k in nonblank[pos:] if keyed(k) and beside(k))
     start = nonblank[pos]
-    n_good = sum(1 for j in nonblank[pos:] if len(rows[j]) == n_fields and is_data_row(data_cells(j), number))
+    n_good = len(full) if not skip else sum(1 for j in nonblank[pos:] if beside(j))
 
     def header_like(k: int, *, loose: bool) -> bool:
         """Names over the data columns; ``loose`` (a units row follows): numbers allowed ("1", "2")."""
@@ -575,11 +575,13 @@ def sniff(data: bytes, path: str) -> TextLayout:
         notes += side_notes
     pairs.update(where.extras)
     body = [rows[k] for k in range(where.data, len(rows)) if len(rows[k]) == where.n_fields]
-    decimal = _decimal_mark(data, body_offset, body, delimiter)
+    quoted = any('"' in text for _, text in lines[where.data:])
+    decimal = "." if delimiter == "," and not quoted else _decimal_mark(data, body_offset, body, delimiter)
     columns = list(range(where.skip, where.n_columns))
     names, units = names[where.skip:], units[where.skip:]
     stamps = _stamp_columns(body, columns, names, units)
-    padded = delimiter != " " and any(_PADDED_QUOTE[delimiter].search(text) for _, text in lines[where.data:])
+    padded = quoted and delimiter != " " and any(_PADDED_QUOTE[delimiter].search(text)
+                                                 for _, text in lines[where.data:])
     return TextLayout(
         delimiter=delimiter, decimal=decimal, names=tuple(names), units=tuple(units),
         header_line=None if where.header is None else where.header + 1,
@@ -599,6 +601,9 @@ def _stamp_columns(body: list[list[str]], columns: list[int], names: list[str],
     found: list[tuple[int, int | None]] = []
     p = 0
     while p < len(columns):
+        if body and NUMBER_ANY.match(clean_cell(body[0][columns[p]])):  # a number column (the usual case)
+            p += 1
+            continue
         kind = stamp_kind([clean_cell(r[columns[p]]) for r in body])
         if kind == "date" and p + 1 < len(columns):
             if stamp_kind([clean_cell(r[columns[p + 1]]) for r in body]) == "clock":
