@@ -248,6 +248,7 @@ def mixed_folder(folder) -> int:
     side = [f"Record Length,{N},Points", "Sample Interval,2e-07,s"]
     beside = "".join((side[k] if k < len(side) else ",,") + "," + line + "\n"
                      for k, line in enumerate(rows(t, s, o).splitlines()))
+    gapped = [f"Record Length,{N},Points", "Sample Interval,2e-07,s", ",,", "Source,CH2,", "Vertical Units,V,"]
     files = {
         "numbered.csv": "x-axis,1,2\nsecond,Volt,Volt\n" + rows(t, s, o),
         "seq.csv": "X,CH1,CH2,Start,Increment\nSequence,Volt,Volt,-1.0E-05,2.0E-07\n" + idx,
@@ -262,9 +263,21 @@ def mixed_folder(folder) -> int:
         "log.csv": "Time (s),Vdd (V),Vref (V),Temp (°C)\n" + rows(t, s, o, np.full(N, 25.5)),
         "C1_pair.csv": "Time,Ampl\n" + rows(t, s * 0.97),
         "C2_pair.csv": "Time,Ampl\n" + rows(t, o * 0.97),
+        # the real-export forms of the second pass: keys beside the data with gaps, a header row over a
+        # per-channel preamble, repeated names over rounded stamps, quoted cells, UTF-16, a footer
+        "gaps.csv": "".join((gapped[k] if k < len(gapped) else ",,") + "," + line + ",\n"
+                            for k, line in enumerate(rows(t, o * 0.96).splitlines())),
+        "perch_header.csv": ",CH1,CH2\nHResolution,2.0E-07,2.0E-07\nHOffset,-1.0E-05,-1.0E-05\nVUnit,V,V\n"
+                            "HUnit,s,s\n\n" + rows(s, o * 0.95, lead=","),
+        "repeat.csv": "Time,Ampl,Ampl\n" + "".join(f"{t[k] * 1e6:.0f}e-6,{s[k].item()!r},{o[k].item() * 0.5!r}\n"
+                                                   for k in range(N)),
+        "quoted.csv": '"Time", "CH1", "CH2"\n' + "".join(f'"{t[k].item()!r}", "{s[k].item()!r}", "{o[k].item() * 0.94!r}"\n'
+                                                       for k in range(N)),
+        "utf16.csv": b"\xff\xfe" + ("Time (\u00b5s),VDD,VREF\r\n" + rows(t * 1e6, s, o * 0.93)).encode("utf-16-le"),
+        "footer.csv": "Time,VDD,VREF\n" + rows(t, s, o * 0.92) + "End of data\nMax,1.81,1.2\n",
     }
-    for name, text in files.items():
-        (folder / name).write_text(text)
+    for name, content in files.items():
+        (folder / name).write_bytes(content if isinstance(content, bytes) else content.encode("utf-8"))
     return len(files) - 1  # the pair is one capture
 
 
@@ -280,6 +293,8 @@ def test_a_mixed_folder_ingests_in_one_command(tmp_path, monkeypatch, capsys):
     assert out.splitlines()[0] == f"camp: {expected} added, 0 skipped, 0 failed ({expected + 1} files read)"
     assert "  roles supply=1 (shape), output=2 (shape): 1 capture" in out.splitlines()
     assert "exports/cut.csv: Samples is 8192 but the file holds 120 samples: imported as truncated" in err
+    assert "exports/repeat.csv: 2 columns named 'Ampl': read as 'Ampl', 'Ampl_2'" in err
+    assert f"exports/footer.csv: 2 lines after the data (from line {N + 2}: 'End of data') read as a footer" in err
     with Campaign.open("camp") as camp:
         table = camp.captures()
         assert len(table) == expected and set(table["n_samples"]) == {N}
