@@ -13,6 +13,7 @@ the file; the body is parsed by a columnar reader (see ``csv_reader``), its end 
 from __future__ import annotations
 
 import csv
+import dataclasses
 import re
 from collections import Counter
 from dataclasses import dataclass
@@ -201,6 +202,7 @@ class TablePosition:
     skip: int = 0
     side_rows: tuple[int, ...] = ()
     extras: tuple[tuple[str, str], ...] = ()
+    text_columns: tuple[int, ...] = ()  # columns of text in every data row (a status or note column)
 
 
 def _numericish(row: Sequence[str], number: re.Pattern) -> bool:
@@ -234,7 +236,8 @@ CHANNEL_NAME_KEYS = frozenset({"source", "sources", "channel", "channels", "trac
                                "names", "label", "labels", "signal", "signals"})
 
 
-def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) -> TablePosition | None:
+def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT, *,
+                 text_columns: bool = False) -> TablePosition | None:
     """Where the data starts, and the header/units rows just above it.
 
     The field count is the most common one among all-value rows (ties: the earliest row's), so a
@@ -242,13 +245,19 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
     first all-value row of that count followed by a mostly-value row (or by nothing). Leading and
     trailing empty columns are judged on the last data rows of the head: key/value cells written
     beside the data fill leading columns of the first rows only (with gaps), and those rows are data
-    too, as far up as their data columns hold values.
+    too, as far up as their data columns hold values. With ``text_columns``, when no row holds only
+    values, columns of text in every data row (a status or note column) are left out first.
     """
     nonblank = [i for i, r in enumerate(rows) if any(c.strip() for c in r)]
     numeric = [i for i in nonblank if _numericish(rows[i], number)]
     clean = [i for i in numeric if is_data_row(rows[i], number)]
     if not clean:
-        return None
+        text = _text_columns(rows, numeric, number) if text_columns else set()
+        if not text:
+            return None
+        masked = [[("" if k in text else c) for k, c in enumerate(r)] for r in rows]
+        where = locate_table(masked, number)
+        return None if where is None else dataclasses.replace(where, text_columns=tuple(sorted(text)))
     counts = Counter(len(rows[i]) for i in clean)
     top = max(counts.values())
     n_fields = next(len(rows[i]) for i in clean if counts[len(rows[i])] == top)
@@ -329,6 +338,20 @@ def locate_table(rows: Sequence[Sequence[str]], number: re.Pattern = VALUE_DOT) 
                 named = k + 1
         n_columns = named
     return TablePosition(header, units, start, n_fields, n_columns, n_good, skip, side, tuple(extras))
+
+
+def _text_columns(rows: Sequence[Sequence[str]], numeric: list[int], number: re.Pattern) -> set[int]:
+    """Columns holding text in every one of the last mostly-value rows of the common width (a status,
+    alarm or note column beside the samples); none when that would leave no column."""
+    if not numeric:
+        return set()
+    width = Counter(len(rows[i]) for i in numeric).most_common(1)[0][0]
+    tail = [rows[i] for i in numeric if len(rows[i]) == width][-SAMPLE_ROWS:]
+    if len(tail) < 2:  # one line of text and a number is a preamble line, not a table
+        return set()
+    found = {k for k in range(width) if all((c := clean_cell(r[k])) and not number.match(c)
+                                            and c.lower() not in NA_TOKENS for r in tail)}
+    return found if len(found) < width else set()
 
 
 def _keyed_name_rows(rows, candidates: list[int], data_cells, number: re.Pattern) -> tuple[int | None, int | None]:
@@ -444,7 +467,7 @@ class TextLayout:
     # index of a separate time-of-day column or None), read as text and turned into seconds.
     stamps: tuple[tuple[int, int | None], ...] = ()
     padded_quotes: bool = False  # blanks between a delimiter and a quote (`1.0, "2.0"`): removed before parsing
-    warnings: tuple[str, ...] = ()  # repeated column names made unique
+    warnings: tuple[str, ...] = ()  # repeated column names made unique, text columns not read
 
 
 def decode_line(raw: bytes) -> str:
@@ -565,7 +588,7 @@ def sniff(data: bytes, path: str) -> TextLayout:
     if where.n_columns > MAX_COLUMNS:
         raise InputError(path, f"{where.n_columns} columns; at most {MAX_COLUMNS} are read (split the export)",
                          line=(where.header if where.header is not None else where.data) + 1)
-    names, units, repeated = column_names_and_units(rows, where)
+    names, units, warnings = column_names_and_units(rows, where)
     body_offset = lines[where.data][0]
     pairs, notes = parse_preamble([text for k, (_, text) in enumerate(lines[:where.data])
                                    if k not in (where.header, where.units)], delimiter)
@@ -577,8 +600,14 @@ def sniff(data: bytes, path: str) -> TextLayout:
     body = [rows[k] for k in range(where.data, len(rows)) if len(rows[k]) == where.n_fields]
     quoted = any('"' in text for _, text in lines[where.data:])
     decimal = "." if delimiter == "," and not quoted else _decimal_mark(data, body_offset, body, delimiter)
-    columns = list(range(where.skip, where.n_columns))
-    names, units = names[where.skip:], units[where.skip:]
+    columns = [k for k in range(where.skip, where.n_columns) if k not in where.text_columns]
+    names, units = [names[k] for k in columns], [units[k] for k in columns]
+    if where.text_columns:
+        head = rows[where.header] if where.header is not None else []
+        text = [split_name_unit(head[k])[0] if k < len(head) and clean_cell(head[k]) else f"column{k + 1}"
+                for k in where.text_columns]
+        warnings.append(f"column{'s' if len(text) > 1 else ''} {', '.join(map(repr, text))} "
+                        f"hold{'' if len(text) > 1 else 's'} text, not samples: not read")
     stamps = _stamp_columns(body, columns, names, units)
     padded = quoted and delimiter != " " and any(_PADDED_QUOTE[delimiter].search(text)
                                                  for _, text in lines[where.data:])
@@ -587,7 +616,7 @@ def sniff(data: bytes, path: str) -> TextLayout:
         header_line=None if where.header is None else where.header + 1,
         first_data_line=where.data + 1, body_offset=body_offset, n_fields=where.n_fields,
         preamble=pairs, notes=tuple(notes), columns=tuple(columns), stamps=stamps, padded_quotes=padded,
-        warnings=tuple(repeated))
+        warnings=tuple(warnings))
 
 
 # Blanks between a delimiter and an opening quote, or a closing quote and a delimiter or the line end.
@@ -620,16 +649,21 @@ def _stamp_columns(body: list[list[str]], columns: list[int], names: list[str],
 
 
 def _best_table(lines: list[tuple[int, str]]) -> tuple[str, list[list[str]], TablePosition] | None:
-    """The delimiter whose reading of the head gives the best table: a header, most data rows, most columns."""
+    """The delimiter whose reading of the head gives the best table: a header, most data rows, most
+    columns (leaving text columns out only when no reading finds a table without)."""
     best = None
-    for rank, delimiter in enumerate(DELIMITERS):
-        rows = [split_fields(text, delimiter) for _, text in lines]
-        where = locate_table(rows, VALUE_ANY)  # a comma inside a comma-delimited cell was quoted
-        if where is None:
-            continue
-        score = (where.header is not None, where.n_good, where.n_columns, -rank)
-        if best is None or score > best[0]:
-            best = (score, delimiter, rows, where)
+    split = {d: [split_fields(text, d) for _, text in lines] for d in DELIMITERS}
+    for text_columns in (False, True):  # text columns are looked for only when no reading finds a table
+        for rank, delimiter in enumerate(DELIMITERS):
+            rows = split[delimiter]
+            where = locate_table(rows, VALUE_ANY, text_columns=text_columns)  # a comma in a cell was quoted
+            if where is None:
+                continue
+            score = (where.header is not None, where.n_good, where.n_columns, -rank)
+            if best is None or score > best[0]:
+                best = (score, delimiter, rows, where)
+        if best is not None:
+            break
     return None if best is None else best[1:]
 
 

@@ -124,3 +124,14 @@ def test_a_workbook_with_date_and_time_cells(tmp_path, kind):
     assert_logger_capture(cap, s, o)
     if kind != "time":
         assert cap.provenance.metadata["start_datetime"] == "2026-11-02T13:01:02.125000"
+
+
+def test_alarm_and_note_columns_of_text_are_left_out_with_a_warning(tmp_path):
+    _, s, o = logger_values()
+    written = stamps("iso-space")
+    body = "".join(f"{k + 1},{written[k]},{s[k].item()!r},{'HI' if s[k] > 3 else 'OK'},{o[k].item()!r},OK,run {k}\n"
+                   for k in range(N))
+    (cap,) = read_path(write(tmp_path, "alarms.csv", "Scan,Time,101 (VDC),Alarm 101,102 (VDC),Alarm 102,Note\n" + body))
+    assert_logger_capture(cap, s, o)
+    assert [c.name for c in cap.channels] == ["101", "102"]
+    assert cap.provenance.warnings == ["columns 'Alarm 101', 'Alarm 102', 'Note' hold text, not samples: not read"]
