@@ -12,17 +12,21 @@ import io
 import re
 import zlib
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 
 from labtool.capture import Capture, sha256_bytes
 from labtool.errors import InputError
+from labtool.ingest.footer import KEPT_LINES, find_footer
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.sniff import (DELIMITER_NAMES, MAX_DECOMPRESSED_BYTES, NA_TOKENS, NULL_TOKENS, NUMBER_DOT,
-                                  TextLayout, check_line_lengths, decode_line, normalise_encoding, shorten, sniff,
-                                  split_fields)
+                                  TextLayout, check_line_lengths, clean_cell, decode_line, drop_padding,
+                                  normalise_encoding, shorten, sniff, split_fields)
+from labtool.ingest.stamps import parse_stamps
 from labtool.ingest.table import RawTable, build_capture
 
 GZIP_MAGIC = b"\x1f\x8b"
@@ -51,15 +55,37 @@ def _squeeze_blanks(body: bytes) -> bytes:
     return body[1:] if body.startswith(b" ") else body
 
 
-def parse_body(data: bytes, layout: TextLayout, path: str) -> list[np.ndarray]:
-    """The numeric columns of the body as float64 arrays (missing values NaN)."""
-    # A zero-copy view of the body; whitespace-delimited text is rewritten to single spaces first.
-    body = (_squeeze_blanks(data[layout.body_offset:]) if layout.delimiter == " "
-            else pa.py_buffer(data).slice(layout.body_offset))
+def _unpad_quotes(body: bytes, delimiter: str) -> bytes:
+    """``1.0, "2.0"`` → ``1.0,"2.0"``: a quote must open its field for the parser to see it (line ends kept)."""
+    d = re.escape(delimiter.encode())
+    return re.sub(rb'(?<=' + d + rb') +(?=")|(?<=") +(?=' + d + rb'|\r|\n|\Z)', b"", body)
+
+
+@dataclass(frozen=True)
+class Body:
+    """The parsed columns (float64, missing values NaN; time stamps in seconds from the first) and
+    what the stamps said about their origin."""
+
+    columns: list[np.ndarray]
+    metadata: dict[str, str]
+
+
+def parse_body(data: bytes, layout: TextLayout, path: str, end: int | None = None) -> Body:
+    """The columns of the body (up to byte ``end``, where a footer starts)."""
+    stop = len(data) if end is None else end
+    # A zero-copy view of the body; whitespace-delimited text is rewritten to single spaces first, and
+    # blanks before quotes are dropped (copies, for those layouts only).
+    if layout.delimiter == " " or layout.padded_quotes:
+        text = data[layout.body_offset:stop]
+        body = _squeeze_blanks(text) if layout.delimiter == " " else _unpad_quotes(text, layout.delimiter)
+    else:
+        body = pa.py_buffer(data).slice(layout.body_offset, stop - layout.body_offset)
     names = [f"c{k}" for k in range(layout.n_fields)]
-    wanted = [names[k] for k in layout.columns]
+    stamp_fields = {k for field, clock in layout.stamps for k in (field, clock) if k is not None}
+    wanted = [names[k] for k in sorted({*layout.columns, *stamp_fields})]
+    types = {names[k]: pa.string() if k in stamp_fields else pa.float64() for k in range(layout.n_fields)}
     try:
-        table = _arrow_read(body, names, wanted, layout)
+        table = _arrow_read(body, names, wanted, types, layout)
     except (pa.ArrowInvalid, pa.ArrowTypeError) as exc:
         # Lines of only blanks are empty to a reader but not to pyarrow: drop them and try once more.
         text = body.to_pybytes() if isinstance(body, pa.Buffer) else body
@@ -67,22 +93,40 @@ def parse_body(data: bytes, layout: TextLayout, path: str) -> list[np.ndarray]:
         if cleaned == text:
             raise _locate_problem(text, layout, path, exc) from None
         try:
-            table = _arrow_read(cleaned, names, wanted, layout)
+            table = _arrow_read(cleaned, names, wanted, types, layout)
         except (pa.ArrowInvalid, pa.ArrowTypeError) as exc2:
             raise _locate_problem(text, layout, path, exc2) from None
-    return [table.column(n).to_numpy(zero_copy_only=False).astype(np.float64, copy=False) for n in wanted]
+    stamps = dict(layout.stamps)
+    columns, metadata = [], {}
+    for k, name in zip(layout.columns, layout.names):
+        if k not in stamps:
+            columns.append(table.column(names[k]).to_numpy(zero_copy_only=False).astype(np.float64, copy=False))
+            continue
+        texts = table.column(names[k]).combine_chunks()
+        if stamps[k] is not None:  # a date column and a time-of-day column: one stamp
+            texts = pc.binary_join_element_wise(texts, table.column(names[stamps[k]]).combine_chunks(), " ")
+        found = parse_stamps(texts)
+        if found.bad is not None:
+            cell = texts[found.bad].as_py()
+            raise InputError(path, f"{shorten(cell)!r} is not a date and time (as in 2026-11-02 13:01:02.125) "
+                                   f"nor a time (13:01:02.125)", line=_row_locator(data, layout)(found.bad),
+                             field=name)
+        columns.append(found.seconds)
+        metadata.update(found.metadata)
+    return Body(columns, metadata)
 
 
 _BLANK_LINE = re.compile(rb"(?<=[\r\n])[ \t]+(?=[\r\n]|\Z)")
 
 
-def _arrow_read(body: bytes | pa.Buffer, names: list[str], wanted: list[str], layout: TextLayout) -> pa.Table:
+def _arrow_read(body: bytes | pa.Buffer, names: list[str], wanted: list[str], types: dict, layout: TextLayout
+                ) -> pa.Table:
     return pacsv.read_csv(
         pa.BufferReader(body),
         read_options=pacsv.ReadOptions(column_names=names, block_size=4 << 20),
         parse_options=pacsv.ParseOptions(delimiter=layout.delimiter, ignore_empty_lines=True),
         convert_options=pacsv.ConvertOptions(
-            column_types={n: pa.float64() for n in wanted}, include_columns=wanted,
+            column_types={n: types[n] for n in wanted}, include_columns=wanted,
             decimal_point=layout.decimal, null_values=list(NULL_TOKENS), strings_can_be_null=True,
             quoted_strings_can_be_null=True))
 
@@ -90,6 +134,7 @@ def _arrow_read(body: bytes | pa.Buffer, names: list[str], wanted: list[str], la
 def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) -> InputError:
     """The first line the columnar parser could not take, with its column (error path only)."""
     number = NUMBER_COMMA if layout.decimal == "," else NUMBER_DOT
+    stamps = {k for field, clock in layout.stamps for k in (field, clock) if k is not None}
     for line, raw in enumerate(body.splitlines(), start=layout.first_data_line):
         text = decode_line(raw)
         if not text.strip():
@@ -99,8 +144,8 @@ def _locate_problem(body: bytes, layout: TextLayout, path: str, exc: Exception) 
             return InputError(path, f"{len(fields)} field{'s' if len(fields) != 1 else ''}, expected "
                                     f"{layout.n_fields} (line cut short or extra delimiter)", line=line)
         for k, name in zip(layout.columns, layout.names):
-            cell = fields[k].strip().strip('"').strip()
-            if cell.lower() in NA_TOKENS or number.match(cell):
+            cell = clean_cell(fields[k])
+            if k in stamps or cell.lower() in NA_TOKENS or number.match(cell):
                 continue
             hint = " (this file uses a decimal comma)" if layout.decimal == "," and NUMBER_DOT.match(cell) else ""
             return InputError(path, f"{shorten(cell)!r} is not a number{hint}", line=line, field=name)
@@ -137,26 +182,44 @@ def _parse_text(path: str, data: bytes) -> RawTable:
     if data.startswith(GZIP_MAGIC):
         data = gunzip(data, path)
         importer = "csv+gzip"
-    data = normalise_encoding(data, path)
+    data = drop_padding(normalise_encoding(data, path))
     check_line_lengths(data, path)
     layout = sniff(data, path)
-    columns = parse_body(data, layout, path)
+    footer = find_footer(data, layout)
+    body = parse_body(data, layout, path, None if footer is None else footer.offset)
     line_of = _row_locator(data, layout)
     header_line = layout.header_line or layout.first_data_line
+    metadata = {**layout.preamble, **body.metadata}
+    warnings = list(layout.warnings)
+    if footer is not None and footer.lines:
+        first = _line_number(data, footer.first_offset)
+        count = len(footer.lines)
+        warnings.append(f"{count} line{'s' if count != 1 else ''} after the data (from line {first}: "
+                        f"{shorten(footer.lines[0])!r}) read as a footer, not as samples")
+        metadata["footer"] = " | ".join(footer.lines[:KEPT_LINES])
+
+    names = list(layout.names)  # build_capture may name header-less channels (in this list)
 
     def place(row: int | None, col: int | None) -> dict:
         where = {"line": header_line if row is None else line_of(row)}
         if col is not None:
-            where["field"] = layout.names[col]
+            where["field"] = names[col]
         return where
 
     preamble_lines = _preamble_lines(data, layout)
     return RawTable(
-        source_path=path, importer=importer, names=list(layout.names), units=list(layout.units),
-        columns=columns, place=place, metadata=dict(layout.preamble),
+        source_path=path, importer=importer, names=names, units=list(layout.units),
+        columns=body.columns, place=place, metadata=metadata,
         metadata_place=lambda key: {"line": preamble_lines.get(key, 1)}, notes=list(layout.notes),
         layout=f"{DELIMITER_NAMES[layout.delimiter]}-delimited, decimal "
-               f"{'comma' if layout.decimal == ',' else 'point'}, data from line {layout.first_data_line}")
+               f"{'comma' if layout.decimal == ',' else 'point'}, data from line {layout.first_data_line}",
+        warnings=warnings)
+
+
+def _line_number(data: bytes, offset: int) -> int:
+    """1-based line number of a byte offset (LF, CRLF or bare-CR line ends)."""
+    newline = b"\n" if data.find(b"\n", 0, offset) >= 0 else b"\r"
+    return data.count(newline, 0, offset) + 1
 
 
 def _preamble_lines(data: bytes, layout: TextLayout) -> dict[str, int]:

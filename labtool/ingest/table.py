@@ -19,7 +19,8 @@ from labtool.ingest.conditions import typed_conditions
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.roles import assign_roles
 from labtool.ingest.shape import ChannelShape, channel_shape, moves
-from labtool.ingest.sniff import is_index_unit, known_unit, split_name_unit
+from labtool.ingest.sniff import (CHANNEL_NAME_KEYS, HORIZONTAL_UNIT_KEYS, VERTICAL_UNIT_KEYS, is_index_unit,
+                                  known_unit, normal_key, split_name_unit)
 from labtool.ingest.timebase import min_max_pairs, rebuild_rounded
 from labtool.units import parse_quantity
 
@@ -30,9 +31,12 @@ SCPI_INFINITY = 9.9e37
 # practice, no source): refused with the cell, never stored.
 PLAUSIBLE_LIMITS = {"V": 1e6, "A": 1e6, "s": 1e10}
 
-TIME_NAMES = frozenset({"time", "t", "x", "seconds", "sec", "timestamp", "time_s", "elapsed"})
-INDEX_NAMES = frozenset({"index", "idx", "sample", "samples", "sample_index", "sample_no", "sample_number",
-                         "point", "points", "pt", "n", "no", "nr", "num", "number", "#"})
+TIME_NAMES = frozenset({"time", "t", "x", "seconds", "sec", "timestamp", "time_s", "elapsed", "elapsed_time",
+                        "time_elapsed", "relative_time", "rel_time", "time_rel", "date_time", "datetime"})
+# Words of a sample-index or scan-number column's name ("Sample #", "Scan No.", "Reading").
+INDEX_WORDS = frozenset({"index", "idx", "sample", "samples", "point", "points", "pt", "n", "no", "nr", "num",
+                         "number", "#", "scan", "scans", "reading", "readings", "record", "rec", "sweep", "seq",
+                         "sequence"})
 _INTERVAL_KEYS = frozenset({"sample_interval", "sampling_interval", "sample_period", "sampling_period", "dt",
                             "time_step", "timestep", "xincrement", "xinc", "horizontal_increment",
                             "time_per_sample", "time_interval", "delta_t", "interval", "increment", "hresolution",
@@ -69,22 +73,38 @@ class RawTable:
     metadata_place: Callable[[str], dict] = lambda key: {}
     notes: list[str] = field(default_factory=list)
     layout: str = ""  # how the file was read, for the record
+    warnings: list[str] = field(default_factory=list)  # what the reader noticed (a footer not read …)
     base_conditions: Conditions = field(default_factory=Conditions)  # below the preamble's
     sheet_conditions: Conditions = field(default_factory=Conditions)  # above the preamble's
 
 
-def _key(text: str) -> str:
-    return re.sub(r"[^0-9a-z#]+", "_", text.lower()).strip("_")
+def _is_index_name(key: str) -> bool:
+    """``sample_#``, ``scan_no``, ``#``: only index words (a bare "#" is one)."""
+    words = [w for w in re.split(r"[_#]+", key) if w] or ([key] if key else [])
+    return bool(words) and all(w in INDEX_WORDS for w in words)
+
+
+def _meta_text(table: RawTable, keys: frozenset[str]) -> str | None:
+    """The value of the first preamble key that is one of ``keys``."""
+    return next((value.strip() for key, value in table.metadata.items() if normal_key(key) in keys), None)
+
+
+def horizontal_unit(table: RawTable) -> str | None:
+    """The time axis's unit from the preamble (``Horizontal Units,ms``, ``HUnit,us``), when it is one in s."""
+    text = _meta_text(table, HORIZONTAL_UNIT_KEYS)
+    info = known_unit(text) if text else None
+    return text if info and info[0] == "s" else None
 
 
 def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: bool = True) -> tuple[float, str] | None:
-    """A quantity from the preamble whose key is one of ``keys`` (unit in the key or the value).
+    """A quantity from the preamble whose key is one of ``keys`` (unit in the key or the value; a bare
+    time is in the preamble's horizontal unit when it gives one).
 
     Not ``strict``: a value that is no quantity (a clock time under "Start Time") counts as absent.
     """
     for key, value in table.metadata.items():
         name, key_unit = split_name_unit(key)
-        if _key(name) not in keys and _key(name).replace("_", "") not in keys:  # "X Increment" as "xincrement"
+        if normal_key(name) not in keys and normal_key(name).replace("_", "") not in keys:  # "X Increment" as "xincrement"
             continue
         text = value.strip()
         if "." not in text:
@@ -93,8 +113,9 @@ def _meta_value(table: RawTable, keys: frozenset[str], unit: str, *, strict: boo
         if " " in text.strip() and all(_PAREN_UNIT.match(f"{w}(s)") for w in text.split()):
             text = text.split()[0]  # one value per channel ("2e-08 2e-08 4e-08"): the first channel's
         text = re.sub(r"\s*(S/s|Sa/s|sps|SPS)$", "Hz", text)
-        if key_unit and re.fullmatch(r"[-+0-9.eE]+", text):
-            text = f"{text} {key_unit}"
+        bare_unit = key_unit or (horizontal_unit(table) if unit == "s" else None)
+        if bare_unit and re.fullmatch(r"[-+0-9.eE]+", text):
+            text = f"{text} {bare_unit}"
         try:
             return parse_quantity(text, unit, what=key), key
         except UsageError:
@@ -213,10 +234,12 @@ def _is_index(values: np.ndarray) -> bool:
 def _length_claim(table: RawTable) -> tuple[str, int] | None:
     """The first preamble line that says how many samples the record holds (Record Length, #Samples …)."""
     for key, value in table.metadata.items():
-        if _key(split_name_unit(key)[0]) in _LENGTH_KEYS:
-            m = re.fullmatch(r"\s*(\d+)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*", value, re.IGNORECASE)
-            if m:
-                return key, int(m.group(1))
+        if normal_key(split_name_unit(key)[0]) in _LENGTH_KEYS:
+            # "2001", "2001 Points", "2.001000e+03" (a count printed like a float)
+            m = re.fullmatch(r"\s*(\d+(?:\.\d*)?(?:[eE]\+?\d+)?)\s*(?:\(?\s*(?:pts|points|samples|sa|s)\s*\)?)?\s*",
+                             value, re.IGNORECASE)
+            if m and float(m.group(1)).is_integer():
+                return key, int(float(m.group(1)))
     return None
 
 
@@ -308,22 +331,13 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
     if n_rows < 2:
         raise InputError(path, f"{n_rows} data row{'s' if n_rows != 1 else ''}; a capture needs at least 2 samples",
                          **table.place(None, None))
-    seen: dict[str, int] = {}
-    for k, name in enumerate(table.names):
-        if name in seen:
-            raise InputError(path, f"two columns named {name!r}", **table.place(None, k))
-        seen[name] = k
-
-    bases: list[str | None] = []
-    factors: list[float] = []
-    index_marked: list[bool] = []
-    for unit in table.units:
-        info = known_unit(unit) if unit else None
-        index_marked.append(is_index_unit(unit))
-        bases.append(None if index_marked[-1] else (info[0] if info else unit))
-        factors.append(info[1] if info else 1.0)
-    found = _Findings()
+    found = _Findings(warnings=list(table.warnings))
+    units = list(table.units)
+    bases, factors = _bases_and_factors(units)
     t_col, index_col = _time_and_index_columns(table, bases)
+    _units_from_preamble(table, units, t_col, index_col)
+    _names_from_preamble(table, t_col, index_col)
+    bases, factors = _bases_and_factors(units)
     pairs = t_col is not None and min_max_pairs(table.columns[t_col])
     if t_col is not None:
         time_base = _time_from_column(table, t_col, factors, found, pairs=pairs)
@@ -365,15 +379,56 @@ def build_capture(table: RawTable, sha256: str, options: IngestOptions) -> Captu
     return Capture(time=time_base, channels=tuple(channels), conditions=conditions, provenance=provenance)
 
 
+def _bases_and_factors(units: list[str | None]) -> tuple[list[str | None], list[float]]:
+    """SI base (None for an index marker or no unit) and factor to it, per column."""
+    bases, factors = [], []
+    for unit in units:
+        info = known_unit(unit) if unit else None
+        bases.append(None if is_index_unit(unit) else (info[0] if info else unit))
+        factors.append(info[1] if info else 1.0)
+    return bases, factors
+
+
+def _units_from_preamble(table: RawTable, units: list[str | None], t_col: int | None, index_col: int | None) -> None:
+    """Units the header leaves out, from the preamble (``units`` edited in place): the time axis's
+    (``Horizontal Units,ms``) for the time column, the channels' (``Vertical Units,V``, one for all or
+    one per channel in order) for the others."""
+    if t_col is not None and units[t_col] is None:
+        units[t_col] = horizontal_unit(table)
+    vertical = (_meta_text(table, VERTICAL_UNIT_KEYS) or "").split()
+    if not vertical or not all(known_unit(u) for u in vertical):
+        return
+    channels = [k for k in range(len(units)) if k not in (t_col, index_col)]
+    if len(vertical) == 1:
+        vertical = vertical * len(channels)
+    if len(vertical) == len(channels):
+        for k, unit in zip(channels, vertical):
+            if units[k] is None:
+                units[k] = unit
+
+
+def _names_from_preamble(table: RawTable, t_col: int | None, index_col: int | None) -> None:
+    """A table without a header: channel names from a preamble ``Source,CH2`` (one per channel, in order)."""
+    if not all(re.fullmatch(r"column\d+", name) for name in table.names):
+        return
+    given = (_meta_text(table, CHANNEL_NAME_KEYS) or "").split()
+    channels = [k for k in range(len(table.names)) if k not in (t_col, index_col)]
+    if len(given) == len(channels) and len(set(given)) == len(given) and not set(given) & set(table.names):
+        for k, name in zip(channels, given):
+            table.names[k] = name
+
+
 def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[int | None, int | None]:
     """The time column (in seconds, or named like time) and the sample-index column, either may be None.
 
     A column of consecutive integers is an index, whatever its name, when the preamble gives the interval
     (so ``x`` or ``Time`` holding 0, 1, 2 … is never read as whole seconds). A table without a header
-    takes its first column as time when it increases throughout.
+    takes its first column as time when it increases throughout. Beside a time column, a column of
+    consecutive integers named like an index (``Scan``, ``Sample #``) or not named at all (the row
+    numbers a data-frame library writes first) is an index, not a channel.
     """
     path = table.source_path
-    keys = [_key(name) for name in table.names]
+    keys = [normal_key(name) for name in table.names]
     t_col = next((k for k, b in enumerate(bases) if b == "s"), None)
     if t_col is None:
         t_col = next((k for k, key in enumerate(keys) if key in TIME_NAMES), None)
@@ -382,15 +437,20 @@ def _time_and_index_columns(table: RawTable, bases: list[str | None]) -> tuple[i
                          **table.place(None, t_col))
     if t_col is not None and _is_index(table.columns[t_col]) and _sample_interval(table) is not None:
         return None, t_col
+    headerless = all(re.fullmatch(r"column\d+", name) for name in table.names)
+
+    def index_like(k: int) -> bool:  # named like an index, marked so in the units row, or unnamed beside names
+        unnamed = not headerless and re.fullmatch(r"column\d+|unnamed_\d+", keys[k]) is not None
+        return _is_index_name(keys[k]) or is_index_unit(table.units[k]) or unnamed
+
+    index_col = next((k for k in range(len(keys)) if k != t_col and bases[k] is None and index_like(k)
+                      and _is_index(table.columns[k])), None)
     if t_col is None:
-        index_col = next((k for k, key in enumerate(keys) if bases[k] is None and _is_index(table.columns[k])
-                          and (key in INDEX_NAMES or is_index_unit(table.units[k]))), None)
         if index_col is not None:
             return None, index_col
-        headerless = all(re.fullmatch(r"column\d+", name) for name in table.names)
         first = table.columns[0]
         if headerless and len(table.names) >= 2 and np.isfinite(first).all() and (np.diff(first) > 0).all():
             if _is_index(first) and _sample_interval(table) is not None:
                 return None, 0
             return 0, None
-    return t_col, None
+    return t_col, index_col

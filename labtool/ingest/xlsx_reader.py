@@ -16,6 +16,7 @@ import zlib
 
 import numpy as np
 import openpyxl
+import pyarrow as pa
 from openpyxl.utils import get_column_letter
 from openpyxl.utils.cell import column_index_from_string, coordinate_from_string
 from openpyxl.utils.exceptions import InvalidFileException
@@ -26,6 +27,7 @@ from labtool.ingest.conditions import typed_conditions
 from labtool.ingest.options import IngestOptions
 from labtool.ingest.sniff import (HEAD_LINES, MAX_COLUMNS, MAX_DECOMPRESSED_BYTES, column_names_and_units,
                                   locate_table, parse_preamble, shorten)
+from labtool.ingest.stamps import parse_stamps, seconds_from_objects, stamp_kind
 from labtool.ingest.table import RawTable, build_capture
 
 CONDITION_SHEETS = frozenset({"conditions", "condition", "run_conditions", "setup", "run_info", "metadata"})
@@ -180,7 +182,7 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
     span = [head[where.header]] if where.header is not None else []
     span += head[where.data:where.data + 4]
     first = min((k for row in span for k, c in enumerate(row) if c.strip()), default=0)
-    names, units = column_names_and_units(head, where)
+    names, units, repeated = column_names_and_units(head, where)
     names, units = names[first:], units[first:]
     header_row = top
 
@@ -188,8 +190,14 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
         r = header_row if row is None else where.data + row
         return {"field": _cell(title, first + (col or 0), r)}
 
-    columns = [_numeric_column(path, title, block, first + k, where.data) for k in range(len(names))]
-    metadata, meta_place, notes = {}, {}, []
+    columns, metadata = [], {}
+    for k in range(len(names)):
+        values, stamp_metadata = _numeric_column(path, title, block, first + k, where.data)
+        columns.append(values)
+        if stamp_metadata is not None:  # dates and times, times of day or durations: seconds from the first
+            units[k] = "s"
+            metadata.update(stamp_metadata)
+    meta_place, notes = {}, []
     for r in range(top):
         cells = [(k, cell_text(v).strip()) for k, v in enumerate(rows[r]) if cell_text(v).strip()]
         pairs, row_notes = parse_preamble(["\t".join(c for _, c in cells)], "\t")
@@ -199,7 +207,7 @@ def _capture_table(path: str, title: str, rows: list[tuple]) -> RawTable | None:
             meta_place[key] = {"field": _cell(title, cells[1][0] if len(cells) > 1 else cells[0][0], r)}
     return RawTable(source_path=path, importer="xlsx", names=names, units=units, columns=columns, place=place,
                     locator=title, metadata=metadata, metadata_place=lambda key: meta_place.get(key, {}),
-                    notes=notes,
+                    notes=notes, warnings=repeated,
                     layout=f"sheet {title!r}, data from row {where.data + 1}")
 
 
@@ -231,14 +239,26 @@ def _refuse_uncached_formulas(path: str, data: bytes, table: RawTable) -> None:
         wb.close()
 
 
-def _numeric_column(path: str, title: str, block: list[tuple], col: int, first_row: int) -> np.ndarray:
+def _numeric_column(path: str, title: str, block: list[tuple], col: int, first_row: int
+                    ) -> tuple[np.ndarray, dict[str, str] | None]:
+    """A column's values as float64, or a time-stamp column in seconds with its metadata."""
     values = np.array([row[col] if col < len(row) else None for row in block], dtype=object)
     try:
         if any(isinstance(v, (bool, _dt.date, _dt.time, _dt.timedelta)) for v in values):
             raise TypeError
-        return values.astype(np.float64)
+        return values.astype(np.float64), None
     except (TypeError, ValueError):
         pass
+    stamps = seconds_from_objects(list(values))
+    if stamps is None and all(isinstance(v, str) or v is None for v in values):
+        texts = [v.strip() if v is not None else None for v in values]
+        if stamp_kind([t for t in texts if t]) in ("datetime", "clock"):
+            stamps = parse_stamps(pa.array(texts, type=pa.string()))
+            if stamps.bad is not None:
+                raise InputError(path, f"{shorten(texts[stamps.bad])!r} is not a date and time",
+                                 field=_cell(title, col, first_row + stamps.bad))
+    if stamps is not None:
+        return stamps.seconds, stamps.metadata
     for r, v in enumerate(values):
         ok = v is None or (isinstance(v, (int, float)) and not isinstance(v, bool))
         if not ok:

@@ -31,7 +31,10 @@ TEXT_CASES = [
      "repeat.csv:4 [time]: time does not increase (1e-06 s after 1e-06 s)"),
     ("notime.csv", b"time,vdd,vref\n0,0,0\n,0.5,0\n2e-6,1,1\n", "notime.csv:3 [time]: time is missing or not a number"),
     ("one.csv", b"time,vdd,vref\n0,0,0\n", "one.csv:1: 1 data row; a capture needs at least 2 samples"),
-    ("dup.csv", b"time,vdd,vdd,vref\n0,0,0,0\n1e-6,0.5,0,0\n", "dup.csv:1 [vdd]: two columns named 'vdd'"),
+    # a repeated name is made unique (vdd_2); two supplies by name are then one choice too many
+    ("dup.csv", b"time,vdd,vdd,vref\n0,0,0,0\n1e-6,0.5,0,0\n",
+     "dup.csv:1: several columns look like the supply (vdd, vdd_2); pick one with --supply NAME "
+     "(columns: time, vdd, vdd_2, vref)"),
     ("amps.csv", b"time [s],vdd [A],vref [V]\n" + GOOD_ROWS.encode(),
      "amps.csv:1 [vdd]: column 'vdd' (supply) is in A; it must be in V"),
     ("div.csv", b"time [s],vdd [V],vref [div]\n" + GOOD_ROWS.encode(),

@@ -13,43 +13,7 @@ import pytest
 from labtool.errors import InputError
 from labtool.ingest import read_path
 
-N, DT, T0 = 120, 2e-7, -1e-5
-
-
-def startup(n: int = N, dt: float = DT, t0: float = T0):
-    """An invented supply ramp (0 → 1.8 V) and a reference output following it (0 → 1.2 V), 4 decimals."""
-    t = t0 + dt * np.arange(n)
-    rng = np.random.default_rng(7)
-    supply = np.round(np.clip((t + 6e-6) / 6e-6, 0, 1) * 1.8 + rng.normal(0, 2e-3, n), 4)
-    output = np.round(1.2 * (1 - np.exp(-np.clip(t - 2e-6, 0, None) / 2e-6)) + rng.normal(0, 2e-3, n), 4)
-    return t, supply, output
-
-
-def write(tmp_path, name: str, text: str, newline: str = "\n") -> str:
-    path = tmp_path / name
-    path.write_bytes(text.replace("\n", newline).encode("utf-8"))
-    return str(path)
-
-
-def rows(*columns, delimiter: str = ",", lead: str = "", tail: str = "") -> str:
-    return "".join(lead + delimiter.join(repr(float(c[k])) for c in columns) + tail + "\n"
-                   for k in range(len(columns[0])))
-
-
-def roles(capture) -> dict:
-    return {c.name: (c.role, c.role_source) for c in capture.channels}
-
-
-def assert_time_base(capture, n=N, dt=DT, t0=T0):
-    tb = capture.time
-    assert tb.uniform and tb.n == n
-    assert tb.dt_s == pytest.approx(dt, rel=1e-9)
-    assert tb.t0_s == pytest.approx(t0, rel=1e-12, abs=1e-18)
-
-
-def assert_values(capture, supply, output):
-    np.testing.assert_array_equal(capture.channel("supply").values, supply)
-    np.testing.assert_array_equal(capture.channel("output").values, output)
+from tests.ingest.exports import DT, N, T0, assert_time_base, assert_values, roles, rows, startup, write
 
 
 def test_numbered_channels_over_a_units_row(tmp_path):
@@ -125,6 +89,57 @@ def test_preamble_beside_the_data(tmp_path):
     assert_time_base(cap)
     assert_values(cap, s, o)  # the first rows, beside the preamble, are data too
     assert cap.provenance.metadata["Sample Interval"] == "2e-07 s"
+
+
+@pytest.mark.parametrize("time_unit,scale", [("s", 1.0), ("ms", 1e3)])
+def test_preamble_beside_the_data_with_gaps_and_a_trailing_comma(tmp_path, time_unit, scale):
+    # Keys in the first three columns of the first rows, with blank key rows between them; the time
+    # axis's unit only in the preamble (a ms time column is rescaled, BIPM SI Brochure 9th ed. table 7).
+    t, _, o = startup()
+    side = [f"Record Length,{N},Points", "Sample Interval,2e-07,s", "Trigger Point,50,Samples", ",,", ",,",
+            "Source,CH2,", "Vertical Units,V,", f"Horizontal Units,{time_unit},"]
+    lines = rows(np.round(t * scale, 9), o).splitlines()
+    text = "".join((side[k] if k < len(side) else ",,") + "," + line + ",\n" for k, line in enumerate(lines))
+    (cap,) = read_path(write(tmp_path, "beside.csv", text))
+    assert_time_base(cap)
+    np.testing.assert_array_equal(cap.channel("output").values, o)  # the rows beside the keys are data too
+    assert [(c.name, c.unit, c.role) for c in cap.channels] == [("CH2", "V", "output")]  # named by "Source"
+    meta = cap.provenance.metadata
+    assert (meta["Record Length"], meta["Vertical Units"], meta["Horizontal Units"]) == (f"{N} Points", "V", time_unit)
+
+
+@pytest.mark.parametrize("unit,scale", [("s", 1.0), ("us", 1e6)])
+def test_per_channel_preamble_under_a_header_with_an_empty_first_cell(tmp_path, unit, scale):
+    # The units rows are keyed (VUnit for the channels, HUnit for the time axis) and must not be taken
+    # for a header; bare horizontal values are in the preamble's horizontal unit.
+    _, s, o = startup()
+    dt, t0 = repr(round(DT * scale, 12)), repr(round(T0 * scale, 12))
+    preamble = [",CH1,CH2", f"HResolution,{dt},{dt}", f"HOffset,{t0},{t0}", "VUnit,V,V", f"HUnit,{unit},{unit}", ""]
+    (cap,) = read_path(write(tmp_path, "perch.csv", "\n".join(preamble) + "\n" + rows(s, o, lead=",")))
+    assert cap.time.n == N
+    assert cap.time.dt_s == pytest.approx(DT, rel=1e-15) and cap.time.t0_s == pytest.approx(T0, rel=1e-15)
+    assert_values(cap, s, o)
+    assert [(c.name, c.unit) for c in cap.channels] == [("CH1", "V"), ("CH2", "V")]
+    assert cap.provenance.metadata["HUnit"] == unit
+
+
+def test_repeated_generic_names_are_made_unique_with_rounded_stamps(tmp_path):
+    t, s, o = startup()
+    # times printed in µs with no decimals (1 µs resolution, 0.2 µs steps): rebuilt from the stamps
+    body = "".join(f"{t[k] * 1e6:.0f}e-6,{s[k].item()!r},{o[k].item()!r}\n" for k in range(N))
+    (cap,) = read_path(write(tmp_path, "round.csv", "Time,Ampl,Ampl\n" + body))
+    assert cap.time.dt_s == pytest.approx(DT, rel=1e-12) and cap.time.t0_s == pytest.approx(T0, rel=1e-12)
+    assert cap.time.n == N
+    assert_values(cap, s, o)
+    assert roles(cap) == {"Ampl": ("supply", "shape"), "Ampl_2": ("output", "shape")}
+    assert cap.provenance.warnings[0] == "2 columns named 'Ampl': read as 'Ampl', 'Ampl_2'"
+    assert "time_base_rebuilt" in cap.provenance.metadata
+
+
+def test_a_bad_cell_in_a_renamed_column_is_named_by_its_new_name(tmp_path):
+    with pytest.raises(InputError) as info:
+        read_path(write(tmp_path, "dup.csv", "Time,Ampl,Ampl\n0,0.1,0.2\n1e-6,0.1,x\n2e-6,0.1,0.2\n"))
+    assert str(info.value).endswith("dup.csv:3 [Ampl_2]: 'x' is not a number")
 
 
 def test_one_channel_file_is_the_output(tmp_path):
@@ -233,6 +248,7 @@ def mixed_folder(folder) -> int:
     side = [f"Record Length,{N},Points", "Sample Interval,2e-07,s"]
     beside = "".join((side[k] if k < len(side) else ",,") + "," + line + "\n"
                      for k, line in enumerate(rows(t, s, o).splitlines()))
+    gapped = [f"Record Length,{N},Points", "Sample Interval,2e-07,s", ",,", "Source,CH2,", "Vertical Units,V,"]
     files = {
         "numbered.csv": "x-axis,1,2\nsecond,Volt,Volt\n" + rows(t, s, o),
         "seq.csv": "X,CH1,CH2,Start,Increment\nSequence,Volt,Volt,-1.0E-05,2.0E-07\n" + idx,
@@ -247,9 +263,21 @@ def mixed_folder(folder) -> int:
         "log.csv": "Time (s),Vdd (V),Vref (V),Temp (°C)\n" + rows(t, s, o, np.full(N, 25.5)),
         "C1_pair.csv": "Time,Ampl\n" + rows(t, s * 0.97),
         "C2_pair.csv": "Time,Ampl\n" + rows(t, o * 0.97),
+        # the real-export forms of the second pass: keys beside the data with gaps, a header row over a
+        # per-channel preamble, repeated names over rounded stamps, quoted cells, UTF-16, a footer
+        "gaps.csv": "".join((gapped[k] if k < len(gapped) else ",,") + "," + line + ",\n"
+                            for k, line in enumerate(rows(t, o * 0.96).splitlines())),
+        "perch_header.csv": ",CH1,CH2\nHResolution,2.0E-07,2.0E-07\nHOffset,-1.0E-05,-1.0E-05\nVUnit,V,V\n"
+                            "HUnit,s,s\n\n" + rows(s, o * 0.95, lead=","),
+        "repeat.csv": "Time,Ampl,Ampl\n" + "".join(f"{t[k] * 1e6:.0f}e-6,{s[k].item()!r},{o[k].item() * 0.5!r}\n"
+                                                   for k in range(N)),
+        "quoted.csv": '"Time", "CH1", "CH2"\n' + "".join(f'"{t[k].item()!r}", "{s[k].item()!r}", "{o[k].item() * 0.94!r}"\n'
+                                                       for k in range(N)),
+        "utf16.csv": b"\xff\xfe" + ("Time (\u00b5s),VDD,VREF\r\n" + rows(t * 1e6, s, o * 0.93)).encode("utf-16-le"),
+        "footer.csv": "Time,VDD,VREF\n" + rows(t, s, o * 0.92) + "End of data\nMax,1.81,1.2\n",
     }
-    for name, text in files.items():
-        (folder / name).write_text(text)
+    for name, content in files.items():
+        (folder / name).write_bytes(content if isinstance(content, bytes) else content.encode("utf-8"))
     return len(files) - 1  # the pair is one capture
 
 
@@ -265,6 +293,8 @@ def test_a_mixed_folder_ingests_in_one_command(tmp_path, monkeypatch, capsys):
     assert out.splitlines()[0] == f"camp: {expected} added, 0 skipped, 0 failed ({expected + 1} files read)"
     assert "  roles supply=1 (shape), output=2 (shape): 1 capture" in out.splitlines()
     assert "exports/cut.csv: Samples is 8192 but the file holds 120 samples: imported as truncated" in err
+    assert "exports/repeat.csv: 2 columns named 'Ampl': read as 'Ampl', 'Ampl_2'" in err
+    assert f"exports/footer.csv: 2 lines after the data (from line {N + 2}: 'End of data') read as a footer" in err
     with Campaign.open("camp") as camp:
         table = camp.captures()
         assert len(table) == expected and set(table["n_samples"]) == {N}
