@@ -45,6 +45,7 @@ class ReportFiles:
     workbook: Path
     plots: tuple[Path, ...]
     failed: tuple[tuple[str, str], ...] = ()  # (what, one-line reason)
+    triage: tuple = ()  # the returned parts' triage reports, in part order
 
 
 @dataclass(frozen=True)
@@ -296,7 +297,8 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
     html_path = out / "report.html"
     write_atomic(html_path, lambda tmp: tmp.write_text(page, encoding="utf-8"), "HTML report")
     pngs = tuple(out / "plots" / name for r in rendered.values() for name, _, _ in r.files)
-    return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
+    reports = tuple(rendered[j.label].triage for j in jobs if j.kind == "part" and j.label in rendered)
+    return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed, triage=reports)
 
 
 def _setup_cells(rows: pd.DataFrame) -> list[tuple]:

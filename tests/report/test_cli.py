@@ -7,6 +7,7 @@ import labtool.cli.commands.demo as demo
 from labtool.cli import main
 from labtool.errors import UsageError
 from labtool.execute import parse_scheduler
+from labtool.stats.triage import STUCK_CAUSES
 from labtool.store import Campaign
 
 
@@ -64,6 +65,9 @@ def test_demo_runs_the_scenario_end_to_end(monkeypatch, tmp_path, capsys):
     assert f"report:   {out / 'report' / 'report.html'}" in printed
     page = (out / "report" / "report.html").read_text(encoding="utf-8")
     assert 'id="s-p-zr24b-p04"' in page and 'id="s-p-zr24a-p01"' in page  # triage of the failing parts
+    # the part stuck at zero is triaged to a stuck cause, with the model's recipes behind the stories
+    stuck = next(line for line in printed.splitlines() if line.startswith("    triage ZR24B/p04: "))
+    assert stuck.split(": ")[1].split()[0] in STUCK_CAUSES and " first (posterior 0." in stuck
     assert "Against the model:" in page
     with Campaign.open(out / "campaign") as camp:
         assert len(camp.measurements()) == 36

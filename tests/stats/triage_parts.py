@@ -156,20 +156,28 @@ class Start:
     t_s: np.ndarray
     vdd_v: np.ndarray
     vref_v: np.ndarray
+    idd_a: np.ndarray | None = None
 
 
-def closed_form_starts(part: str, kind: str, seed: int, repeats: int = REPEATS) -> list[Start]:
-    """Every start of a closed-form part of this kind over the matrix."""
+def supply_current(rng, vref: np.ndarray, leakage_a: float = 2e-9) -> np.ndarray:
+    """About 10 µA once the core runs (in proportion to its output), junction leakage before."""
+    return leakage_a + 10e-6 * np.clip(vref / 1.2, 0, None) + rng.normal(0, 0.05e-6, vref.size)
+
+
+def closed_form_starts(part: str, kind: str, seed: int, repeats: int = REPEATS, *, current: bool = False,
+                       temps=TEMPS, ramps=RAMPS) -> list[Start]:
+    """Every start of a closed-form part of this kind over the matrix (with ``current``: a supply-current channel)."""
     rng = np.random.default_rng([seed, 17])
     chip = ClosedFormPart(rng)
     does = pattern(kind, rng)
     out = []
-    for T in TEMPS:
-        for r in RAMPS:
+    for T in temps:
+        for r in ramps:
             for k in range(repeats):
                 t, vdd, vref = chip.trace(T, r, **does(T, r, k))
+                idd = supply_current(rng, vref) if current else None
                 vdd, vref = scope(rng, t, vdd, vref)
-                out.append(Start(part, T, r, k + 1, t, vdd, vref))
+                out.append(Start(part, T, r, k + 1, t, vdd, vref, idd))
     return out
 
 
@@ -201,47 +209,52 @@ def model_starts(design, part_names: list[str], seed: int, repeats: int, points:
     return out
 
 
-def write_files(folder: Path, starts: list[Start]) -> None:
-    """A bench export: one CSV per start (time [s], vdd [V], vref [V]) and a run sheet."""
+def write_files(folder: Path, starts: list[Start], returned=frozenset()) -> None:
+    """A bench export: one CSV per start (time [s], vdd [V], vref [V]) and a run sheet whose
+    ``returned`` column marks the ``returned`` parts."""
     folder.mkdir(parents=True, exist_ok=True)
     rows = []
     for st in starts:
         name = f"{st.part}_{st.temperature_c:g}C_{st.ramp_s:g}s_{st.repeat}.csv"
         body = "\n".join(f"{a:.6g},{b:.3f},{c:.4f}" for a, b, c in zip(st.t_s, st.vdd_v, st.vref_v))
         (folder / name).write_text("time [s],vdd [V],vref [V]\n" + body + "\n", encoding="utf-8")
-        rows.append([name, LOT, st.part, f"{st.temperature_c:g}", f"{st.ramp_s:g}", str(st.repeat)])
+        rows.append([name, LOT, st.part, f"{st.temperature_c:g}", f"{st.ramp_s:g}", str(st.repeat),
+                     "yes" if st.part in returned else ""])
     with open(folder / "manifest.csv", "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["file", "lot", "part", "temperature_c", "ramp_s", "repeat"])
+        w.writerow(["file", "lot", "part", "temperature_c", "ramp_s", "repeat", "returned"])
         w.writerows(rows)
 
 
-def _capture(st: Start):
+def _capture(st: Start, lot: str):
     from labtool.capture import Conditions
     from tests.builders import make_capture
 
-    cond = Conditions(lot=LOT, part=st.part, temperature_c=st.temperature_c, ramp_s=st.ramp_s, vdd_v=VDD_V,
+    cond = Conditions(lot=lot, part=st.part, temperature_c=st.temperature_c, ramp_s=st.ramp_s, vdd_v=VDD_V,
                       repeat=st.repeat)
     return make_capture(st.vdd_v, st.vref_v, float(st.t_s[1] - st.t_s[0]), t0_s=float(st.t_s[0]), conditions=cond,
-                        source=f"bench/{st.part}_{st.temperature_c:g}C_{st.ramp_s:g}s_{st.repeat}.csv")
+                        source=f"bench/{lot}_{st.part}_{st.temperature_c:g}C_{st.ramp_s:g}s_{st.repeat}.csv",
+                        extra=None if st.idd_a is None else {"idd": st.idd_a})
 
 
-def store_and_measure(campaign: Path, starts: list[Start], *, files: Path | None = None, limits: Limits = LIMITS):
-    """The starts into a campaign (as CSV files through ``labtool ingest`` when ``files`` is given, else
-    straight into the store), measured by the engine; (measurement table, catalog records)."""
+def store_and_measure(campaign: Path, starts: list[Start], *, files: Path | None = None, limits: Limits = LIMITS,
+                      returned=frozenset(), lots: dict[str, str] | None = None):
+    """The starts into a campaign (as CSV files and a run sheet through ``labtool ingest`` when ``files``
+    is given, else straight into the store; ``lots``: part → lot other than LOT), measured by the
+    engine; (measurement table, catalog records)."""
     from labtool.execute import parse_scheduler
 
     scheduler = parse_scheduler("local:2")
     with Campaign.open(campaign, create=True) as camp:
         if files is not None:
-            write_files(files, starts)
+            write_files(files, starts, returned)
             manifest = files / "manifest.csv"
             ingested = ingest_paths([str(files)], camp, IngestOptions(manifest=load_manifest(str(manifest))),
                                     scheduler, exclude=[str(manifest)])
             assert not ingested.failed, ingested.failed[:3]
         else:
             for st in starts:
-                camp.add_capture(_capture(st))
+                camp.add_capture(_capture(st, (lots or {}).get(st.part, LOT)))
         measured = measure_campaign(camp, limits, scheduler)
         assert not measured.failed, measured.failed[:3]
         return camp.measurements(), camp.records()

@@ -97,7 +97,7 @@ STORIES: tuple[Story, ...] = (
           bench_check="Measure the supply at the device pin with the scope while ramping; check the current limit, "
           "the socket contacts and the sense lines, re-seat the part and repeat one capture before judging the chip."),
     Story("dead_everywhere", "stuck at every ramp and temperature (startup path open, amplifier dead)", _CAUSE_PRIOR,
-          "all", _alpha(stuck=10, recollapse=0.5, incomplete=0.5, started=0.5), recipe="startup_open",
+          "all", _alpha(stuck=20, recollapse=0.3, incomplete=0.3, started=0.3), recipe="startup_open",
           bench_check="With the output stuck, measure the supply current: at leakage level (nA) the core and startup "
           "draw nothing (startup path open or amplifier without bias). Then inject a small current into the "
           "reference node (external kick): starting and staying up means a startup fault, not a dead core."),

@@ -19,7 +19,7 @@ from labtool.stats.triage.result import Conclusion, RankedHypothesis, TriageRepo
 
 MIN_CAUSE_POSTERIOR = 0.5  # below it the top cause is "leading", not "the" cause
 N_DECIDING = 6
-MIN_DECIDING_NATS = 0.05
+MIN_DECIDING_NATS = 0.01
 
 
 def triage(measurements: pd.DataFrame, part: str, lot: str | None = None, design=None, *,
