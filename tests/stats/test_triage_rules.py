@@ -110,7 +110,7 @@ def test_a_small_baseline_is_widened_by_the_conjugate_prior_a_large_one_is_not()
     delay = METRIC["delay_s"]
     values = np.array([10e-6, 11e-6, 12e-6])  # three captures of other parts at a 10 µs ramp
     sp = baseline_spread(values, delay, 10e-6)
-    s = 1.4826 * np.median(np.abs(values - 11e-6))
+    s = np.median(np.abs(values - 11e-6)) / 0.6745  # MAD/0.6745 (Iglewicz & Hoaglin 1993)
     prior = 0.25 * 11e-6 + 0.03 * 10e-6
     # (ν0·σ0² + (n − 1)·s²) / (ν0 + n − 1), ν0 + n − 1 degrees of freedom (Gelman et al., BDA 3rd ed. §3.3)
     assert sp.scale == pytest.approx(math.sqrt((PRIOR_DOF * prior ** 2 + 2 * s ** 2) / (PRIOR_DOF + 2)))
@@ -118,7 +118,7 @@ def test_a_small_baseline_is_widened_by_the_conjugate_prior_a_large_one_is_not()
     assert baseline_spread(values[:1], delay, 10e-6).contamination > 0  # one capture may be a faulty part's
     many = np.linspace(10e-6, 12e-6, MIN_BASELINE)
     big = baseline_spread(many, delay, 10e-6)
-    assert big.scale == pytest.approx(1.4826 * np.median(np.abs(many - np.median(many)))) and big.dof == MIN_BASELINE - 1
+    assert big.scale == pytest.approx(np.median(np.abs(many - np.median(many))) / 0.6745) and big.dof == MIN_BASELINE - 1
     assert total_scale(big, 0.0) == pytest.approx(big.scale * math.sqrt(1 + 1 / MIN_BASELINE))
 
 

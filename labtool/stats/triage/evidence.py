@@ -23,6 +23,8 @@ from labtool.stats.triage.parts import current_versions, select_part
 from labtool.units import format_si
 
 _UNITS = {"ramp_s": "s", "temperature_c": "°C", "vdd_v": "V"}
+# What a capture's resolution floor and its assumed resolution are computed from.
+_FLOOR_COLUMNS = ("capture_id", "vout_final_v", "vsupply_final_v", "rise_s", "dt_s", "n_samples")
 
 
 def setup_text(keys, values) -> str:
@@ -44,8 +46,11 @@ def _order(setup: tuple) -> tuple:
     return tuple((v is None, v or 0.0) for v in setup)
 
 
-def _key(values) -> tuple:
-    return tuple(None if v is None or (isinstance(v, float) and math.isnan(v)) else float(v) for v in values)
+def _keys(rows: pd.DataFrame, keys: list[str]) -> list[tuple]:
+    """Each row's set-up: the values of ``keys`` as floats, None where missing."""
+    values = rows[keys].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=np.float64) if keys else \
+        np.zeros((len(rows), 0))
+    return [tuple(None if math.isnan(v) else float(v) for v in row) for row in values.tolist()]
 
 
 @dataclass
@@ -146,8 +151,8 @@ def collect(measurements: pd.DataFrame, part: str, lot: str | None = None,
             notes.append(f"{lot}/{name} is the only part of lot {lot}: its baseline is the other lots at the same set-ups")
     # a condition nobody recorded (all blank) does not split set-ups
     keys = [k for k in cell_keys(table) if table[k].notna().any()]
-    setup_keys = [_key(r) for r in rows[keys].itertuples(index=False)] if keys else [()] * len(rows)
-    other_keys = [_key(r) for r in others[keys].itertuples(index=False)] if keys else [()] * len(others)
+    setup_keys = _keys(rows, keys)
+    other_keys = _keys(others, keys)
     setups = sorted(set(setup_keys), key=_order)
     setup_of = np.array([setups.index(k) for k in setup_keys], dtype=int)
     category = _categories(rows["verdict"])
@@ -173,7 +178,7 @@ def collect(measurements: pd.DataFrame, part: str, lot: str | None = None,
     temps = sorted({s[keys.index("temperature_c")] for s in setups} - {None}) if "temperature_c" in keys else []
     ramps = sorted({s[keys.index("ramp_s")] for s in setups} - {None}) if "ramp_s" in keys else []
     res = _resolutions(rows, resolution)
-    recs = rows.to_dict("records")
+    recs = rows[[c for c in _FLOOR_COLUMNS if c in rows.columns]].to_dict("records")
     ramp_col = keys.index("ramp_s") if "ramp_s" in keys else None
     ramps_of = [s[ramp_col] if ramp_col is not None else None for s in setups]
     metrics = {m.column: _metric(m, rows, recs, others, other_at, lot_index, [ramps_of[i] for i in setup_of], res)
@@ -191,7 +196,7 @@ def _resolutions(rows: pd.DataFrame, resolution: pd.DataFrame | None) -> list[Ca
         for rec in mine.to_dict("records"):
             measured[rec["capture_id"]] = CaptureResolution(**{k: rec[k] for k in fields})
     out = []
-    for rec in rows.to_dict("records"):
+    for rec in rows[[c for c in _FLOOR_COLUMNS if c in rows.columns]].to_dict("records"):
         r = measured.get(rec.get("capture_id"))
         out.append(r if r is not None else CaptureResolution.assumed(
             _float(rec.get("vout_final_v")), _float(rec.get("vsupply_final_v")), _float(rec.get("dt_s")),

@@ -20,6 +20,7 @@ no source). The ids in :data:`STORIES` are a contract of ``labtool triage --json
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Mapping
 
 import numpy as np
@@ -65,12 +66,12 @@ class Story:
     regions: str  # one of REGION_FAMILIES
     alpha: Mapping[str, float] = field(default_factory=dict, hash=False)  # Dirichlet inside the region
 
-    @property
+    @cached_property
     def relevant(self) -> np.ndarray:
         """Mask over CATEGORIES of the verdicts the story is about."""
         return np.array([c in self.alpha for c in CATEGORIES])
 
-    @property
+    @cached_property
     def alpha_vector(self) -> np.ndarray:
         """Dirichlet parameters of the relevant verdicts, in CATEGORIES order."""
         return np.array([self.alpha[c] for c in CATEGORIES if c in self.alpha], dtype=np.float64)

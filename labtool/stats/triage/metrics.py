@@ -1,7 +1,7 @@
 """The continuous values triage weighs, their baselines' widening and each capture's resolution floor.
 
 A value is compared only with the lot's values at the same set-up. Its spread there is the robust
-scale (1.4826·MAD) of the baseline when it has at least :data:`MIN_BASELINE` captures (Student t with
+scale of the baseline (MAD/0.6745, labtool.stats.outliers.robust_location_scale) when it has at least :data:`MIN_BASELINE` captures (Student t with
 n − 1 degrees of freedom). Below that the baseline is "too small" and the spread is widened: a
 documented prior spread with :data:`PRIOR_DOF` degrees of freedom is combined with the baseline's own,
 (ν0·σ0² + (n − 1)·s²)/(ν0 + n − 1), with ν0 + n − 1 degrees of freedom (the conjugate normal update of
@@ -20,6 +20,7 @@ import numpy as np
 
 from labtool.measure.levels import noise_rms, subsample
 from labtool.measure.startup import TAIL_FRACTION
+from labtool.stats.outliers import robust_location_scale
 
 MIN_BASELINE = 5  # captures of other parts at a set-up before its spread is taken from them alone
 PRIOR_DOF = 4.0  # the prior spread is known to about a factor of two (labtool's choice)
@@ -30,7 +31,6 @@ MEDIAN_RESISTS = 3
 # A capture read without its waveform is taken as an 8-bit record with its level at half of full scale:
 # one code is 1/128 of the level (bench scopes are typically 8-bit: common practice, no source).
 DEFAULT_CODES_PER_LEVEL = 128.0
-_MAD_TO_SIGMA = 1.4826  # normal distribution: sigma = 1.4826·MAD (common practice, no source)
 
 
 @dataclass(frozen=True)
@@ -150,8 +150,7 @@ def baseline_spread(values: np.ndarray, metric: Metric, ramp_s: float | None) ->
     v = v[np.isfinite(v)]
     if v.size == 0:
         return None
-    med = float(np.median(v))
-    scale = _MAD_TO_SIGMA * float(np.median(np.abs(v - med))) if v.size > 1 else 0.0
+    med, scale = robust_location_scale(v)
     if v.size >= MIN_BASELINE:
         return Spread(med, scale, float(v.size - 1), int(v.size))
     ramp = ramp_s if ramp_s is not None and math.isfinite(ramp_s) else 0.0

@@ -19,12 +19,12 @@ import numpy as np
 import pandas as pd
 
 from labtool.execute import Scheduler, run_batch
+from labtool.stats.outliers import robust_location_scale
 from labtool.stats.triage.hypotheses import CAME_UP, CATEGORIES, STORIES, category_index
 
 NOMINAL = "nominal"
 MODEL_METRICS = ("delay_s", "overshoot_pct", "vout_final_v")
 DEFAULT_SAMPLES = 16
-_MAD_TO_SIGMA = 1.4826
 
 
 @dataclass(frozen=True)
@@ -117,10 +117,9 @@ def _cell(item) -> tuple[str, tuple, ModelCell]:
     came_up = samples[np.isin(cats, CAME_UP)]
     medians, scales = {}, {}
     for metric in MODEL_METRICS:
-        v = pd.to_numeric(came_up.get(metric, pd.Series(dtype=float)), errors="coerce").dropna().to_numpy(float)
-        if v.size >= 3:
-            medians[metric] = float(np.median(v))
-            scales[metric] = _MAD_TO_SIGMA * float(np.median(np.abs(v - np.median(v))))
+        v = pd.to_numeric(came_up.get(metric, pd.Series(dtype=float)), errors="coerce").to_numpy(float)
+        if np.isfinite(v).sum() >= 3:
+            medians[metric], scales[metric] = robust_location_scale(v)
         else:
             medians[metric] = None
     return variant, setup, ModelCell(counts, medians, scales)

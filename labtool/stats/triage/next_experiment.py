@@ -69,7 +69,7 @@ class NextExperiment:
     kind: str  # "failure_count", "value_shift" or "none"
     condition: dict = field(default_factory=dict)  # the set-up to test (CELL_KEYS present)
     condition_text: str = ""
-    outcome: str | None = None  # the verdict counted ("stuck at zero", … or "a start that is not clean")
+    outcome: str | None = None  # what is counted ("starts stuck at zero", …, "starts that are not clean")
     power_cycles: int | None = None
     failures_to_decide: int | None = None  # k: at least k such starts favour the story predicting more
     per_cycle_probability: dict = field(default_factory=dict)  # story → predicted probability of the outcome
@@ -93,11 +93,16 @@ def _candidates(ev: PartEvidence) -> list[tuple]:
     return list(ev.setups) + known
 
 
+OUTCOME_WORDS = {"no_supply": "starts without a valid supply", "stuck_at_zero": "starts stuck at zero",
+                 "recollapse": "starts that fall back", "incomplete": "starts that do not settle",
+                 "slow_start": "slow starts", "ringing": "ringing starts", "wrong_level": "starts at a wrong level"}
+
+
 def _outcomes() -> list[tuple[str, list[int]]]:
     """Each failure verdict alone, then any start that is not a clean start."""
     started = CATEGORIES.index("started")
-    single = [(c.replace("_", " "), [i]) for i, c in enumerate(CATEGORIES) if i != started]
-    return single + [("a start that is not clean", [i for i in range(len(CATEGORIES)) if i != started])]
+    single = [(OUTCOME_WORDS[c], [i]) for i, c in enumerate(CATEGORIES) if i != started]
+    return single + [("starts that are not clean", [i for i in range(len(CATEGORIES)) if i != started])]
 
 
 def choose(scorer: Scorer, first: StoryScore, second: StoryScore) -> NextExperiment:
@@ -145,11 +150,11 @@ def choose(scorer: Scorer, first: StoryScore, second: StoryScore) -> NextExperim
     probs = (a, b)
     where = ev.describe(setups[i])
     if k == 1:
-        decide = (f"one such start or more favours {names[hi]}; none in {n} rules it out at 95 % "
+        decide = (f"one or more favours {names[hi]}; none in {n} rules it out at 95 % "
                   f"(n ≥ ln 0.05 / ln(1 − {probs[hi]:.3g}))")
     else:
-        decide = f"{k} or more such starts favour {names[hi]}, fewer favour {names[lo]}, each at 95 %"
-    text = (f"Power-cycle the part {n} times at {where}, with full discharge between cycles, and count {label}: "
-            f"{names[hi]} predicts it in {probs[hi]:.1%} of cycles, {names[lo]} in {probs[lo]:.2%}; {decide}.")
+        decide = f"{k} or more favour {names[hi]}, fewer favour {names[lo]}, each at 95 %"
+    text = (f"Power-cycle the part {n} times at {where}, with full discharge between cycles, and count the {label}: "
+            f"{names[hi]} predicts them in {probs[hi]:.1%} of cycles, {names[lo]} in {probs[lo]:.2%}; {decide}.")
     return NextExperiment(names, "failure_count", ev.setup_dict(setups[i]), where, outcome=label, power_cycles=n,
                           failures_to_decide=k, per_cycle_probability={names[0]: a, names[1]: b}, text=text)

@@ -128,7 +128,7 @@ def _median(rows: pd.DataFrame, column: str, mask=None) -> float | None:
 def _fraction_by(rows: pd.DataFrame, key: str) -> dict:
     if key not in rows.columns or rows[key].notna().sum() == 0:
         return {}
-    return {f"{k:g}": float(v) for k, v in rows.groupby(key)["verdict"].apply(lambda s: (s == STUCK).mean()).items()}
+    return {f"{k:g}": float(v) for k, v in (rows["verdict"] == STUCK).groupby(rows[key]).mean().items()}
 
 
 def _descriptive(ev: PartEvidence, name: str) -> dict:
