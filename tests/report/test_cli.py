@@ -20,6 +20,16 @@ def test_report_command_writes_the_files_and_says_where(campaign, tmp_path, caps
     assert len(load_workbook(out / "report.xlsx")["Summary"]["A"]) == 1 + 4  # 2 lots × 2 ramp times
 
 
+def test_report_command_triages_the_parts_it_is_given_besides_the_returned_ones(campaign, tmp_path, capsys):
+    out = tmp_path / "rep"
+    assert main(["report", str(campaign), "--out", str(out), "--part", "ZR24B/p02", "--scheduler", "local:1"]) == 0
+    capsys.readouterr()
+    names = {p.name for p in (out / "plots").glob("*-triage.png")}
+    assert names == {"part-zr24a-p04-triage.png", "part-zr24b-p02-triage.png"}  # tagged returned, and given
+    parts = {r[0] for r in load_workbook(out / "report.xlsx")["Triage"].iter_rows(min_row=2, values_only=True)}
+    assert parts == {"ZR24A/p04", "ZR24B/p02"}
+
+
 @pytest.mark.parametrize("argv, code, message", [
     (["--by", "nosuchcolumn"], 2, "labtool report: --by: no column nosuchcolumn in the measurement table"),
     (["--scheduler", "local:0"], 2, "labtool report: --scheduler 'local:0': the worker count must be"),
