@@ -7,7 +7,7 @@ import pytest
 from scipy import integrate, stats
 from scipy.special import gammaln
 
-from labtool.stats.triage import STORIES, cycles_to_see_a_failure, repeat_count
+from labtool.stats.triage import STORIES, cycles_to_see_a_failure, model_setup, repeat_count
 from labtool.stats.triage.densities import (SHIFT_MAX, SHIFT_MIN, healthy_probabilities, log_dm, log_healthy,
                                             log_shifted, logsumexp)
 from labtool.stats.triage.hypotheses import CATEGORIES
@@ -138,3 +138,9 @@ def test_resolution_floor_of_a_quiet_8_bit_trace():
     slow_edge = {**row, "rise_s": 66e-6}
     assert res.floor("delay_s", slow_edge) == pytest.approx(0.008 * 66e-6 / (0.8 * 1.2))  # ... or a code over the slope
     assert code_step(np.linspace(0, 1, 1000)) == pytest.approx(1 / 999)  # unquantised: the sample spacing
+
+
+def test_the_models_set_up_of_a_capture_without_a_recorded_supply():
+    # A blank vdd_v (NaN in the table) is "not recorded", not a supply of NaN volts for the model.
+    assert model_setup({"ramp_s": 1e-3, "temperature_c": 25.0, "vdd_v": float("nan")}) == (1e-3, 25.0, None)
+    assert model_setup({"ramp_s": 1e-3, "temperature_c": None}) is None

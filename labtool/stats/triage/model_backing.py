@@ -20,6 +20,7 @@ import pandas as pd
 
 from labtool.execute import Scheduler, run_batch
 from labtool.stats.outliers import robust_location_scale
+from labtool.stats.table import plain
 from labtool.stats.triage.hypotheses import CAME_UP, CATEGORIES, STORIES, category_index
 
 NOMINAL = "nominal"
@@ -59,12 +60,18 @@ class ModelEvidence:
         return rec.medians[metric] - nom.medians[metric], rec.scales.get(metric, 0.0)
 
 
+def _value(setup: Mapping, key: str) -> float | None:
+    v = plain(setup.get(key))
+    return None if v is None else float(v)
+
+
 def model_setup(setup: Mapping[str, float | None]) -> tuple | None:
-    """The model's key of a bench set-up: (ramp_s, temperature_c, vdd_v or None); None without ramp and temperature."""
-    ramp, temp = setup.get("ramp_s"), setup.get("temperature_c")
+    """The model's key of a bench set-up: (ramp_s, temperature_c, vdd_v or None; blanks are None);
+    None without ramp and temperature."""
+    ramp, temp = _value(setup, "ramp_s"), _value(setup, "temperature_c")
     if ramp is None or temp is None:
         return None
-    return (float(ramp), float(temp), None if setup.get("vdd_v") is None else float(setup["vdd_v"]))
+    return (ramp, temp, _value(setup, "vdd_v"))
 
 
 def record_windows(rows: pd.DataFrame) -> dict[tuple, float]:

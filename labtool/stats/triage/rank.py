@@ -197,8 +197,12 @@ def _conclusion(ev: PartEvidence, hypotheses: tuple[RankedHypothesis, ...], llr:
                           f"of other parts there; ranking shown for what it is worth")
     lr = f"ln LR {llr:.1f} over {runner.name}" if llr is not None else f"runner-up {runner.name}"
     if top.name == HEALTHY and top.posterior >= MIN_CAUSE_POSTERIOR:
+        failed = {v: n for v, n in ev.rows["verdict"].value_counts().items() if v != "started"}
+        verb = "is" if sum(failed.values()) == 1 else "are"
+        alone = (f"; the part's {', '.join(f'{n} {v}' for v, n in failed.items())} {verb} not enough to name a "
+                 "cause against this baseline") if failed else ""
         return Conclusion("healthy", None, f"no hypothesis above the healthy pattern (posterior {top.posterior:.2f}; "
-                                           f"next: {runner.name} at {runner.posterior:.2f})")
+                                           f"next: {runner.name} at {runner.posterior:.2f}){alone}")
     if top.name == HEALTHY:
         return Conclusion("leading", None, f"nothing decided: the healthy pattern leads (posterior {top.posterior:.2f}) "
                                            f"before {runner.name} ({runner.posterior:.2f}): see the next experiment")
