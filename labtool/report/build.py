@@ -400,11 +400,13 @@ def _part_section(label: str, rep, pictures) -> report_html.Section:
                          "ln LR to next": h.log_lr_to_next, "where": h.where, "what": h.title,
                          "evidence": plots.evidence_text(h.evidence), "bench check": h.bench_check}
                         for i, h in enumerate(rep.hypotheses) if h.testable])
-    deciding = rep.deciding_table()
     tables = [report_html.Table("Hypotheses, ranked by posterior probability", hyp)]
-    if len(deciding):
-        tables.append(report_html.Table(f"Captures that decided {rep.deciding_evidence['for']} over "
-                                        f"{rep.deciding_evidence['against']} (nats)", deciding))
+    top, runner = rep.deciding_evidence["for"], rep.deciding_evidence["against"]
+    for key, caption in (("against_healthy", f"Captures that set {top} apart from the healthy pattern (nats)"),
+                         ("captures", f"Captures that decided {top} over {runner} (nats)")):
+        deciding = rep.deciding_table(key)
+        if len(deciding):
+            tables.append(report_html.Table(caption, deciding))
     return report_html.Section(anchor, label, facts=facts, pictures=pictures, tables=tables,
                                text=" ".join(rep.notes), nav_group="parts")
 

@@ -144,6 +144,9 @@ def test_json_contract(lot):
     capture = js["deciding_evidence"]["captures"][0]
     assert {"capture_id", "file", "ramp_s", "temperature_c", "vdd_v", "repeat", "verdict", "nats"} <= set(capture)
     assert capture["nats"] > 0 and js["deciding_evidence"]["against"] == names[1]
+    # what sets the dead part apart from a healthy one: its stuck captures, each worth several nats
+    apart = js["deciding_evidence"]["against_healthy"]
+    assert len(apart) == 6 and all(c["verdict"] == "stuck_at_zero" and c["nats"] > 3 for c in apart)
 
 
 def test_the_next_experiment_separates_the_top_two_by_the_repeat_count_rule(lot):

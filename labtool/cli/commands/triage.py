@@ -112,10 +112,11 @@ def render(report) -> str:
                               "hypothesis": h.name, "where": h.where or "-"} for i, h in enumerate(shown)],
                              ("rank", "posterior", "ln_lr_next", "hypothesis", "where")))
     deciding = report.deciding_evidence
-    if deciding.get("captures"):
-        lines.append(f"\ndeciding captures ({deciding['for']} over {deciding['against']}, nats):")
-        for c in deciding["captures"]:
-            lines.append(f"  {c['nats']:+.2f}  {c['verdict']:<14} {c.get('file') or c['capture_id']}")
+    for key, what in (("against_healthy", f"{deciding['for']} over the healthy pattern"),
+                      ("captures", f"{deciding['for']} over {deciding['against']}")):
+        if deciding.get(key):
+            lines.append(f"\ndeciding captures ({what}, nats):")
+            lines += [f"  {c['nats']:+.2f}  {c['verdict']:<14} {c.get('file') or c['capture_id']}" for c in deciding[key]]
     lines.append(f"\nnext experiment: {report.next_experiment.text}")
     top = report.top
     if top.bench_check:

@@ -51,7 +51,8 @@ def triage(measurements: pd.DataFrame, part: str, lot: str | None = None, design
         part=ev.label, lot=ev.lot, n_captures=ev.n, n_baseline=len(ev.lot_rows),
         verdicts={k: int(v) for k, v in ev.rows["verdict"].value_counts().items()}, hypotheses=hypotheses,
         conclusion=_conclusion(ev, hypotheses, llr), log_lr_to_runner_up=llr,
-        deciding_evidence=_deciding(ev, first, second), next_experiment=choose(scorer, first, second),
+        deciding_evidence=_deciding(ev, first, second, next(s for s in scores if s.story.name == HEALTHY)),
+        next_experiment=choose(scorer, first, second),
         notes=tuple(notes),
         model=None if model is None else {"design": model.design, "samples_per_setup": model.n_samples,
                                           "seed": model.seed})
@@ -163,20 +164,10 @@ def _escape_margin(model: ModelEvidence, rows: pd.DataFrame) -> dict:
                                                      for t in temps if float(t) in model.i_start_min_a}}
 
 
-def _deciding(ev: PartEvidence, first: StoryScore, second: StoryScore) -> dict:
-    """The captures and set-ups whose plug-in log-probabilities favour the top story most over the runner-up."""
+def _deciding(ev: PartEvidence, first: StoryScore, second: StoryScore, healthy: StoryScore) -> dict:
+    """The captures and set-ups whose plug-in log-probabilities favour the top story most over the
+    runner-up, and (when the top is a fault) the captures that most set it apart from the healthy pattern."""
     delta = first.per_capture - second.per_capture
-    rows = ev.rows.reset_index(drop=True)
-    file_col = next((c for c in ("file", "source_path") if c in rows.columns), None)
-    captures = []
-    for i in np.argsort(-delta)[:N_DECIDING]:
-        if delta[i] < MIN_DECIDING_NATS:
-            break
-        rec = rows.iloc[int(i)]
-        captures.append({"capture_id": plain(rec.get("capture_id")), "file": plain(rec.get(file_col)) if file_col else None,
-                         **ev.setup_dict(ev.setups[ev.setup_of[i]]),
-                         "repeat": plain(rec.get("repeat")) if "repeat" in rows.columns else None,
-                         "verdict": str(rec["verdict"]), "nats": round(float(delta[i]), 3)})
     conditions = []
     for k, s in enumerate(ev.setups):
         total = float(delta[ev.setup_of == k].sum())
@@ -184,7 +175,27 @@ def _deciding(ev: PartEvidence, first: StoryScore, second: StoryScore) -> dict:
             conditions.append({**ev.setup_dict(s), "condition_text": ev.describe(s),
                                "n_captures": int((ev.setup_of == k).sum()), "nats": round(total, 3)})
     conditions.sort(key=lambda c: -c["nats"])
-    return {"for": first.story.name, "against": second.story.name, "captures": captures, "conditions": conditions}
+    out = {"for": first.story.name, "against": second.story.name, "captures": _top_captures(ev, delta),
+           "conditions": conditions}
+    if first.story.name != HEALTHY:
+        out["against_healthy"] = _top_captures(ev, first.per_capture - healthy.per_capture)
+    return out
+
+
+def _top_captures(ev: PartEvidence, delta: np.ndarray) -> list[dict]:
+    """Up to N_DECIDING captures with the largest positive weight ``delta`` (nats), largest first."""
+    rows = ev.rows.reset_index(drop=True)
+    file_col = next((c for c in ("file", "source_path") if c in rows.columns), None)
+    out = []
+    for i in np.argsort(-delta)[:N_DECIDING]:
+        if delta[i] < MIN_DECIDING_NATS:
+            break
+        rec = rows.iloc[int(i)]
+        out.append({"capture_id": plain(rec.get("capture_id")), "file": plain(rec.get(file_col)) if file_col else None,
+                    **ev.setup_dict(ev.setups[ev.setup_of[i]]),
+                    "repeat": plain(rec.get("repeat")) if "repeat" in rows.columns else None,
+                    "verdict": str(rec["verdict"]), "nats": round(float(delta[i]), 3)})
+    return out
 
 
 def _conclusion(ev: PartEvidence, hypotheses: tuple[RankedHypothesis, ...], llr: float | None) -> Conclusion:

@@ -84,6 +84,7 @@ class TriageReport:
                               "log_lr_to_next": h.log_lr_to_next, "title": h.title, "where": h.where,
                               "bench_check": h.bench_check} for i, h in enumerate(self.hypotheses)])
 
-    def deciding_table(self) -> pd.DataFrame:
-        """The captures that decided between the top two, most decisive first."""
-        return pd.DataFrame(list(self.deciding_evidence.get("captures", [])))
+    def deciding_table(self, key: str = "captures") -> pd.DataFrame:
+        """The captures that decided between the top two (``against_healthy``: that set the top fault apart
+        from the healthy pattern), most decisive first."""
+        return pd.DataFrame(list(self.deciding_evidence.get(key, [])))
