@@ -60,8 +60,9 @@ def _model(args, rows, limits: dict):
         raise UsageError(f"--model-samples {n}: must be at least 1")
     design = load_design(args.model)
     setups = [model_setup(r) for r in rows.to_dict("records")]
-    return design, model_evidence(design, setups, windows=record_windows(rows), limits=Limits(**limits) if limits else None,
-                                  n=n, seed=args.seed, scheduler=parse_scheduler(args.scheduler))
+    return design, model_evidence(design, setups, windows=record_windows(rows),
+                                  limits=Limits(**limits) if limits else None, n=n, seed=args.seed,
+                                  scheduler=parse_scheduler(args.scheduler))
 
 
 def run(args) -> int:
@@ -104,7 +105,8 @@ def run(args) -> int:
 def render(report) -> str:
     """The readable report of one part."""
     verdicts = ", ".join(f"{k} {v}" for k, v in sorted(report.verdicts.items()))
-    lines = [f"part {report.part}: {report.n_captures} captures ({verdicts}); lot baseline {report.n_baseline} captures",
+    lines = [f"part {report.part}: {report.n_captures} captures ({verdicts}); "
+             f"lot baseline {report.n_baseline} captures",
              f"conclusion: {report.conclusion.text}"]
     shown = [h for h in report.hypotheses if h.testable]
     lines.append(text_table([{"rank": i + 1, "posterior": f"{h.posterior:.3f}",
@@ -116,7 +118,8 @@ def render(report) -> str:
                       ("captures", f"{deciding['for']} over {deciding['against']}")):
         if deciding.get(key):
             lines.append(f"\ndeciding captures ({what}, nats):")
-            lines += [f"  {c['nats']:+.2f}  {c['verdict']:<14} {c.get('file') or c['capture_id']}" for c in deciding[key]]
+            lines += [f"  {c['nats']:+.2f}  {c['verdict']:<14} {c.get('file') or c['capture_id']}"
+                      for c in deciding[key]]
     lines.append(f"\nnext experiment: {report.next_experiment.text}")
     top = report.top
     if top.bench_check:

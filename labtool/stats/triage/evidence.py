@@ -148,7 +148,8 @@ def collect(measurements: pd.DataFrame, part: str, lot: str | None = None,
         if same.any():
             others = others[same]
         elif len(others):
-            notes.append(f"{lot}/{name} is the only part of lot {lot}: its baseline is the other lots at the same set-ups")
+            notes.append(f"{lot}/{name} is the only part of lot {lot}: its baseline is the other lots at the same "
+                         "set-ups")
     # a condition nobody recorded (all blank) does not split set-ups
     keys = [k for k in cell_keys(table) if table[k].notna().any()]
     setup_keys = _keys(rows, keys)

@@ -94,7 +94,8 @@ _CAUSE_PRIOR = 0.075
 STORIES: tuple[Story, ...] = (
     Story(HEALTHY, "behaves as its lot at the same set-ups (no fault shown)", 0.20, "none"),
     Story("fixture_supply_invalid", "supply or fixture never valid", _CAUSE_PRIOR, "rectangle",
-          _alpha(no_supply=4, stuck=2, recollapse=0.5, incomplete=0.5, wrong=0.3, started=1), Shift("vsupply_final_v", 0),
+          _alpha(no_supply=4, stuck=2, recollapse=0.5, incomplete=0.5, wrong=0.3, started=1),
+          Shift("vsupply_final_v", 0),
           bench_check="Measure the supply at the device pin with the scope while ramping; check the current limit, "
           "the socket contacts and the sense lines, re-seat the part and repeat one capture before judging the chip."),
     Story("dead_everywhere", "stuck at every ramp and temperature (startup path open, amplifier dead)", _CAUSE_PRIOR,
@@ -109,8 +110,8 @@ STORIES: tuple[Story, ...] = (
           "startup that needs dV/dt shows exactly this threshold."),
     Story("cold_only_stuck", "stuck only cold (amplifier common-mode or threshold limit)", _CAUSE_PRIOR, "cold",
           _alpha(stuck=8, recollapse=0.5, incomplete=0.5, slow=0.2, started=1),
-          bench_check="Step the temperature down from the coldest passing point in 5–10 °C steps at the failing ramp; "
-          "a sharp edge points to the amplifier's input common-mode limit or a device threshold at zero current. "
+          bench_check="Step the temperature down from the coldest passing point in 5–10 °C steps at the failing "
+          "ramp; a sharp edge points to the amplifier's input common-mode limit or a device threshold at zero current. "
           "Check whether a higher supply moves the edge."),
     Story("hot_only_stuck", "stuck only hot (leakage overcoming the startup current)", _CAUSE_PRIOR, "hot",
           _alpha(stuck=8, recollapse=0.5, incomplete=0.5, slow=0.2, started=1), recipe="hot_leaky_q1",
@@ -129,16 +130,17 @@ STORIES: tuple[Story, ...] = (
           "kick should then start it every time."),
     Story("weak_startup_slow", "slow start far outside the lot (weak startup current)", _CAUSE_PRIOR, "rectangle",
           _alpha(stuck=0.5, incomplete=1, slow=4, started=4), Shift("delay_s", +1), recipe="starved_amplifier",
-          bench_check="Measure the startup current on this part (or the delay vs supply ramp): delay ≈ C·ΔV/I_start, "
-          "so a delay several times the lot's means a startup current several times weaker. Compare with a good "
-          "part at the same set-up."),
+          bench_check="Measure the startup current on this part (or the delay vs supply ramp): "
+          "delay ≈ C·ΔV/I_start, so a delay several times the lot's means a startup current several times "
+          "weaker. Compare with a good part at the same set-up."),
     Story("excess_ringing", "ringing beyond the lot (excess startup current or low phase margin)", _CAUSE_PRIOR,
-          "rectangle", _alpha(incomplete=0.5, ringing=4, started=4), Shift("overshoot_pct", +1), recipe="late_strong_pulldown",
+          "rectangle", _alpha(incomplete=0.5, ringing=4, started=4), Shift("overshoot_pct", +1),
+          recipe="late_strong_pulldown",
           bench_check="Capture the output with a low-capacitance probe at two load capacitances and two ramp rates: "
           "overshoot growing with faster ramps points to excess startup current; ringing that changes with load "
           "points to low phase margin."),
-    Story("level_fault", "wrong output level (core or trim fault)", _CAUSE_PRIOR, "rectangle", _alpha(wrong=4, started=4),
-          Shift("vout_final_v", 0), recipe="trim_ratio_low",
+    Story("level_fault", "wrong output level (core or trim fault)", _CAUSE_PRIOR, "rectangle",
+          _alpha(wrong=4, started=4), Shift("vout_final_v", 0), recipe="trim_ratio_low",
           bench_check="Measure the settled output with a DMM at three temperatures and read back the trim code: a "
           "constant shift is a trim fault; a wrong temperature slope is a core fault (resistor ratio or diode area)."),
     Story(NO_FIT, "no hypothesis fits (a pattern none of these stories describes)", 0.05, "all",

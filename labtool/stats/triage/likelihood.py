@@ -209,8 +209,9 @@ class Scorer:
             cont += np.where(m.eligible, np.logaddexp(m.log_healthy, m.log_shift(0)) - math.log(2.0), 0.0)
         alpha = story.alpha_vector  # every verdict is relevant here
         q = (alpha + counts) / (alpha.sum() + counts.sum())
-        return StoryScore(story, float(log_dm(counts, alpha) + cont.sum()), regions=[Region(("all", 0), ("all", 0), 1.0)],
-                          region_log=np.zeros(1), per_capture=np.log(q[ev.category]) + cont)
+        return StoryScore(story, float(log_dm(counts, alpha) + cont.sum()),
+                          regions=[Region(("all", 0), ("all", 0), 1.0)], region_log=np.zeros(1),
+                          per_capture=np.log(q[ev.category]) + cont)
 
     def _model_cells(self, recipe: str) -> list:
         return [self.model.cell(recipe, model_setup(self.ev.setup_dict(s))) for s in self.ev.setups]

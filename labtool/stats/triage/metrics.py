@@ -1,13 +1,13 @@
 """The continuous values triage weighs, their baselines' widening and each capture's resolution floor.
 
 A value is compared only with the lot's values at the same set-up. Its spread there is the robust
-scale of the baseline (MAD/0.6745, labtool.stats.outliers.robust_location_scale) when it has at least :data:`MIN_BASELINE` captures (Student t with
-n − 1 degrees of freedom). Below that the baseline is "too small" and the spread is widened: a
-documented prior spread with :data:`PRIOR_DOF` degrees of freedom is combined with the baseline's own,
-(ν0·σ0² + (n − 1)·s²)/(ν0 + n − 1), with ν0 + n − 1 degrees of freedom (the conjugate normal update of
-a scaled inverse-χ² prior on the variance; Gelman et al., Bayesian Data Analysis, 3rd ed., §3.3, from
-memory). On top, in quadrature, comes the capture's own resolution: what its noise and code step let a
-measurement tell apart (docs/triage.md).
+scale of the baseline (MAD/0.6745, labtool.stats.outliers.robust_location_scale) when it has at least
+:data:`MIN_BASELINE` captures (Student t with n − 1 degrees of freedom). Below that the baseline is
+"too small" and the spread is widened: a documented prior spread with :data:`PRIOR_DOF` degrees of
+freedom is combined with the baseline's own, (ν0·σ0² + (n − 1)·s²)/(ν0 + n − 1), with ν0 + n − 1
+degrees of freedom (the conjugate normal update of a scaled inverse-χ² prior on the variance; Gelman
+et al., Bayesian Data Analysis, 3rd ed., §3.3, from memory). On top, in quadrature, comes the
+capture's own resolution: what its noise and code step let a measurement tell apart (docs/triage.md).
 """
 
 from __future__ import annotations
@@ -125,7 +125,8 @@ METRICS: tuple[Metric, ...] = (
     Metric("vout_final_v", frozenset({"started", "slow_start", "ringing", "wrong_level"}),
            lambda mu, ramp: 0.01 * abs(mu), "V"),
     Metric("vsupply_final_v", frozenset({"started", "slow_start", "ringing", "wrong_level", "stuck_at_zero",
-                                         "recollapse", "incomplete", "no_supply"}), lambda mu, ramp: 0.01 * abs(mu), "V"),
+                                         "recollapse", "incomplete", "no_supply"}),
+           lambda mu, ramp: 0.01 * abs(mu), "V"),
 )
 METRIC = {m.column: m for m in METRICS}
 

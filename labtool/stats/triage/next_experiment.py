@@ -34,7 +34,8 @@ MIN_SHIFT_SPREADS = 1.0
 
 
 def cycles_to_see_a_failure(p: float, confidence: float = CONFIDENCE) -> int:
-    """Power cycles n with P(at least one failure) ≥ confidence at per-start probability p: n ≥ ln(1−c)/ln(1−p)."""
+    """Power cycles n with P(at least one failure) ≥ confidence at per-start probability p:
+    n ≥ ln(1 − c) / ln(1 − p)."""
     if not 0.0 < p <= 1.0:
         raise ValueError(f"p must be in (0, 1], not {p}")
     if p == 1.0:

@@ -215,8 +215,9 @@ def _conclusion(ev: PartEvidence, hypotheses: tuple[RankedHypothesis, ...], llr:
         return Conclusion("healthy", None, f"no hypothesis above the healthy pattern (posterior {top.posterior:.2f}; "
                                            f"next: {runner.name} at {runner.posterior:.2f}){alone}")
     if top.name == HEALTHY:
-        return Conclusion("leading", None, f"nothing decided: the healthy pattern leads (posterior {top.posterior:.2f}) "
-                                           f"before {runner.name} ({runner.posterior:.2f}): see the next experiment")
+        return Conclusion("leading", None, f"nothing decided: the healthy pattern leads (posterior "
+                                           f"{top.posterior:.2f}) before {runner.name} ({runner.posterior:.2f}): "
+                                           "see the next experiment")
     if top.name == NO_FIT:
         named = next(h for h in hypotheses if h.name not in (HEALTHY, NO_FIT))
         return Conclusion("no_fit", None, f"no hypothesis fits (posterior {top.posterior:.2f}); the nearest named "
