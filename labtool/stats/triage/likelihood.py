@@ -59,30 +59,38 @@ def _side(side: tuple[str, int], idx: np.ndarray) -> np.ndarray:
     return idx >= edge
 
 
-def _options(low: str, high: str, n: int, with_all: bool) -> list[tuple[tuple[str, int], float]]:
-    """A side and its prior: "all" ½, each lower edge ¼/(n−1), each upper edge ¼/(n−1) (only "all" for n < 2)."""
+def _options(low: str, high: str, n: int) -> list[tuple[tuple[str, int], float]]:
+    """A side of one axis and its prior: "all" ½, each lower edge ¼/(n−1), each upper edge ¼/(n−1)
+    (only "all" when fewer than two values were tested)."""
     if n < 2:
-        return [(("all", 0), 1.0)] if with_all else []
-    share = 0.25 if with_all else 0.5
-    edges = [((low, e), share / (n - 1)) for e in range(1, n)] + [((high, e), share / (n - 1)) for e in range(1, n)]
-    return ([(("all", 0), 0.5)] if with_all else []) + edges
+        return [(("all", 0), 1.0)]
+    edges = [((low, e), 0.25 / (n - 1)) for e in range(1, n)] + [((high, e), 0.25 / (n - 1)) for e in range(1, n)]
+    return [(("all", 0), 0.5)] + edges
+
+
+def _edges(kind: str, options) -> list[tuple[tuple[str, int], float]]:
+    """The options on one side of an axis, priors renormalised over them."""
+    picked = [o for o in options if o[0][0] == kind]
+    return [(side, 1.0 / len(picked)) for side, _ in picked]
 
 
 def regions(family: str, n_temps: int, n_ramps: int) -> list[Region]:
-    """The regions of a story's family over the tested temperatures and ramp times, priors summing to 1."""
-    every = ("all", 0)
+    """The regions of a story's family over the tested temperatures and ramp times, priors summing to 1.
+
+    ``cold``/``hot``: a temperature edge (uniform over the edges), times any side of the ramps (every
+    ramp ½, a fast or a slow side ¼); ``slow``: a ramp edge times any side of the temperatures;
+    ``rectangle``: any side of both.
+    """
+    temps, ramps = _options("cold", "hot", n_temps), _options("fast", "slow", n_ramps)
     if family == "all":
-        return [Region(every, every, 1.0)]
+        return [Region(("all", 0), ("all", 0), 1.0)]
     if family in ("cold", "hot"):
-        picked = [(s, p) for s, p in _options("cold", "hot", n_temps, False) if s[0] == family]
-        return [Region(s, every, 1.0 / len(picked)) for s, _ in picked]
-    if family == "slow":
-        picked = [(s, p) for s, p in _options("fast", "slow", n_ramps, False) if s[0] == "slow"]
-        return [Region(every, s, 1.0 / len(picked)) for s, _ in picked]
-    if family == "rectangle":
-        return [Region(t, r, pt * pr) for t, pt in _options("cold", "hot", n_temps, True)
-                for r, pr in _options("fast", "slow", n_ramps, True)]
-    raise ValueError(family)
+        temps = _edges(family, temps)
+    elif family == "slow":
+        ramps = _edges("slow", ramps)
+    elif family != "rectangle":
+        raise ValueError(family)
+    return [Region(t, r, pt * pr) for t, pt in temps for r, pr in ramps]
 
 
 @dataclass

@@ -31,6 +31,7 @@ CONFIDENCE = 0.95
 MAX_CYCLES = 10_000
 MIN_RATE_GAP = 0.02  # failure probabilities closer than this are not told apart by repeating
 MIN_SHIFT_SPREADS = 1.0
+MANY_CYCLES = 50  # beyond this, say that the matrix itself does not separate the two well
 
 
 def cycles_to_see_a_failure(p: float, confidence: float = CONFIDENCE) -> int:
@@ -157,5 +158,8 @@ def choose(scorer: Scorer, first: StoryScore, second: StoryScore) -> NextExperim
         decide = f"{k} or more favour {names[hi]}, fewer favour {names[lo]}, each at 95 %"
     text = (f"Power-cycle the part {n} times at {where}, with full discharge between cycles, and count the {label}: "
             f"{names[hi]} predicts them in {probs[hi]:.1%} of cycles, {names[lo]} in {probs[lo]:.2%}; {decide}.")
+    if n > MANY_CYCLES:
+        text += (" No condition of the tested matrix separates them faster: a temperature or ramp time between the "
+                 "tested ones, or beyond them, would.")
     return NextExperiment(names, "failure_count", ev.setup_dict(setups[i]), where, outcome=label, power_cycles=n,
                           failures_to_decide=k, per_cycle_probability={names[0]: a, names[1]: b}, text=text)
