@@ -8,7 +8,6 @@ in the report and in :attr:`ReportFiles.failed`; the others are still written.
 
 from __future__ import annotations
 
-import json
 import os
 import re
 import time
@@ -35,13 +34,12 @@ from labtool.stats.lot import lot_statistics, lot_table, setup_table
 from labtool.stats.setups import SETUP_KEYS, counted, setup_tuple, split_setups
 from labtool.stats.sources import measured_limits
 from labtool.stats.table import CAME_UP, groups, parse_keys, part_labels
-from labtool.stats.triage import triage
+from labtool.stats.triage import load_resolution, returned_parts, triage
 from labtool.units import format_si
 
 MAX_OVERLAYS = 4  # set-ups whose waveforms are drawn per group
 MAX_TRACES = 120  # traces per overlay; failures first, then starts evenly spread
 MAX_HTML_ROWS = 2000
-RETURNED = "returned"
 
 
 @dataclass(frozen=True)
@@ -50,15 +48,16 @@ class ReportFiles:
     workbook: Path
     plots: tuple[Path, ...]
     failed: tuple[tuple[str, str], ...] = ()  # (what, one-line reason)
+    triage: tuple = ()  # the returned parts' triage reports, in part order
 
 
 @dataclass(frozen=True)
 class Rendered:
-    """What a worker drew: (file name, caption, PNG bytes) per figure, and a returned part's ranked
-    hypotheses. The parent writes the files, so workers on other machines need no shared output folder."""
+    """What a worker drew: (file name, caption, PNG bytes) per figure, and a returned part's triage
+    report. The parent writes the files, so workers on other machines need no shared output folder."""
 
     files: tuple[tuple[str, str, bytes], ...] = field(repr=False)
-    hypotheses: tuple = ()
+    triage: Any = None
 
 
 @dataclass(frozen=True)
@@ -77,7 +76,7 @@ class _Job:
     predictions: pd.DataFrame | None = field(default=None, repr=False)
     spec_max_delay_s: float | None = None
     triage_rows: pd.DataFrame | None = field(default=None, repr=False)  # the part's lot, for triage
-    design: Any = field(default=None, repr=False)
+    triage_model: Any = field(default=None, repr=False)  # the model's Monte Carlo at the parts' set-ups
     supply_valid: str = ""  # what "supply valid" meant for these measurements, for the captions
 
 
@@ -94,9 +93,12 @@ def group_label(key: Mapping[str, Any]) -> str:
 def render_job(job: _Job) -> Rendered:
     """Draw and save the job's figures (a returned part's triage runs here too, in the worker)."""
     try:
-        hypotheses = triage(job.triage_rows, job.label, design=job.design).hypotheses if job.kind == "part" else ()
+        report = None
+        if job.kind == "part":
+            resolution = load_resolution(job.root, job.records) if job.root is not None else None
+            report = triage(job.triage_rows, job.label, resolution=resolution, model=job.triage_model)
         drawers = {"overview": _overview_plots, "group": _group_plots, "part": _part_plots}
-        drawn = drawers[job.kind](job, hypotheses) if job.kind == "part" else drawers[job.kind](job)
+        drawn = drawers[job.kind](job, report) if job.kind == "part" else drawers[job.kind](job)
     except LabtoolError:
         raise
     except Exception as exc:  # a figure that cannot be drawn fails its group, not the report
@@ -106,7 +108,7 @@ def render_job(job: _Job) -> Rendered:
         seen[plot.name] += 1
         name = f"{job.stem}-{plot.name}{'' if seen[plot.name] == 1 else f'-{seen[plot.name]}'}.png"
         out.append((name, caption, plot.png()))
-    return Rendered(tuple(out), tuple(hypotheses))
+    return Rendered(tuple(out), report)
 
 
 def supply_valid_text(limits: Limits) -> str:
@@ -153,7 +155,7 @@ def _group_plots(job: _Job):
     return out
 
 
-def _part_plots(job: _Job, hypotheses):
+def _part_plots(job: _Job, report):
     """A triage sheet: per ramp time of the part (failing ones first), its traces against the lot's."""
     part = _load_traces(job.root, job.records, job.rows)
     lot = _load_traces(job.root, job.baseline_records, job.baseline_rows)
@@ -165,9 +167,11 @@ def _part_plots(job: _Job, hypotheses):
         title = "all set-ups" if ramp is None else f"ramp {format_si(ramp, 's')}"
         panels.append(plots.TriagePanel(f"{title} · lot n = {len(theirs)}", mine, envelope(theirs)))
     lot_name = str(job.rows["lot"].iloc[0]) if "lot" in job.rows.columns else "lot"
-    sheet = plots.triage_sheet(panels, hypotheses, job.rows, part_label=job.label, lot_label=lot_name)
+    hypotheses = [h.to_json_dict() for h in report.hypotheses]
+    sheet = plots.triage_sheet(panels, hypotheses, job.rows, part_label=job.label, lot_label=lot_name,
+                               conclusion=report.conclusion.text, next_experiment=report.next_experiment.text)
     return [(sheet, f"Triage sheet of returned part {job.label}: its traces against its lot at the same ramp "
-                    "times, its captures and the ranked hypotheses.")]
+                    "times, its captures and the hypotheses ranked by posterior probability.")]
 
 
 def _ramps_by_id(rows: pd.DataFrame | None) -> dict:
@@ -247,22 +251,6 @@ def _load_design(design):
     return load_design(design)
 
 
-def _returned_parts(table: pd.DataFrame) -> list[str]:
-    """``LOT/PART`` of parts with a capture tagged returned (a tag named so, or a tag value so)."""
-    tag_cols = set()
-    for text in table.get("tags_json", pd.Series(dtype=object)).dropna().unique():
-        tag_cols |= set(json.loads(text))
-    flagged = pd.Series(False, index=table.index)
-    for col in sorted(tag_cols & set(table.columns)):
-        values = table[col].astype("string").str.strip().str.lower()
-        if col.lower() == RETURNED:
-            flagged |= values.isin(["1", "true", "yes", "y", RETURNED]).fillna(False)
-        else:
-            flagged |= (values == RETURNED).fillna(False)
-    labels = part_labels(table)
-    return sorted(set(labels[flagged & (labels != "")]))
-
-
 # -- the report ---------------------------------------------------------------------------------
 def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=None, *,
                  scheduler: Scheduler | None = None, spec_max_delay_s: float | None = None,
@@ -272,7 +260,8 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
 
     ``campaign``: a campaign path, an open Campaign, or a measurement table (then no waveform plots).
     ``design``: a design file or Design; the model's Monte Carlo at the measured set-ups (``model_samples``
-    per set-up, ``seed``) gives the predicted distributions. ``predictions`` (a predictions table)
+    per set-up, ``seed``) gives the predicted distributions, and backs the returned parts' triage with
+    the failure recipes' Monte Carlo (at most 16 parts per set-up and recipe). ``predictions`` (a predictions table)
     may be given instead. ``spec_max_delay_s`` defaults to the measurement limits' ``max_delay_s``.
     Parts tagged returned get a triage sheet, and so do ``parts`` (``LOT/PART``).
     """
@@ -301,8 +290,9 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
         model_failed = [(f"Monte Carlo at ramp_s={r:g}, temperature_c={t:g}", why)
                         for (r, t), why in (predictions.attrs.get("failed", []) if predictions is not None else [])]
         comparisons = compare(table, predictions, by) if predictions is not None else None
-        returned = sorted(set(_returned_parts(table)) | set(parts))
-        jobs = _jobs(table, by, root, camp, predictions, spec_max_delay_s, returned, design,
+        returned = sorted(set(returned_parts(table)) | set(parts))
+        jobs = _jobs(table, by, root, camp, predictions, spec_max_delay_s, returned,
+                     _triage_model(design, table, returned, measured_with, model_samples, seed, scheduler),
                      supply_valid_text(measured_with))
     finally:
         if camp is not None and camp is not campaign:
@@ -319,13 +309,14 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
              "model_samples_per_setup": model_samples if design is not None else None, "seed": seed if design is not None else None}
     workbook = write_workbook(out / "report.xlsx", table, summary=lot_table(stats),
                               comparison=comparison_table(comparisons) if comparisons is not None else None,
-                              limits=limits, about=about)
+                              limits=limits, about=about, triage=_triage_table(jobs, rendered))
     sections = _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limits)
     page = report_html.render_html(title or "Startup report", _subtitle(table, by, about), sections)
     html_path = out / "report.html"
     write_atomic(html_path, lambda tmp: tmp.write_text(page, encoding="utf-8"), "HTML report")
     pngs = tuple(out / "plots" / name for r in rendered.values() for name, _, _ in r.files)
-    return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed)
+    reports = tuple(rendered[j.label].triage for j in jobs if j.kind == "part" and j.label in rendered)
+    return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed, triage=reports)
 
 
 def _predicted_by_setup(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> dict | None:
@@ -345,7 +336,39 @@ def _predicted_by_setup(rows: pd.DataFrame, predictions: pd.DataFrame | None) ->
     return out
 
 
-def _jobs(table, by, root, camp, predictions, spec, returned, design, supply_valid: str) -> list[_Job]:
+def _triage_model(design, table: pd.DataFrame, returned: Sequence[str], limits: Limits, samples: int, seed: int,
+                  scheduler):
+    """The model's Monte Carlo at every set-up of the returned parts, once for all of them (with a design):
+    ``samples`` per set-up and recipe, at most the triage default."""
+    if design is None or not returned:
+        return None
+    from labtool.stats.triage import model_evidence, model_setup, record_windows
+    from labtool.stats.triage.model_backing import DEFAULT_SAMPLES
+
+    rows = table[part_labels(table).isin(returned)]
+    return model_evidence(design, [model_setup(r) for r in rows.to_dict("records")], windows=record_windows(rows),
+                          limits=limits, n=min(samples, DEFAULT_SAMPLES), seed=seed,
+                          scheduler=scheduler)
+
+
+def _triage_table(jobs, rendered) -> pd.DataFrame | None:
+    """The workbook's Triage sheet: per returned part its ranked hypotheses; the conclusion, the next
+    experiment and the deciding captures on the part's first row."""
+    frames = []
+    for job in (j for j in jobs if j.kind == "part" and j.label in rendered):
+        rep = rendered[job.label].triage
+        frame = rep.table().drop(columns=["bench_check"])
+        frame.insert(0, "part", rep.part)
+        top = {"conclusion": rep.conclusion.text, "next_experiment": rep.next_experiment.text,
+               "deciding_captures": "; ".join(f"{c.get('file') or c['capture_id']} ({c['verdict']}, {c['nats']:+.2f})"
+                                              for c in rep.deciding_evidence.get("captures", []))}
+        for col, text in top.items():
+            frame[col] = [text] + [None] * (len(frame) - 1)
+        frames.append(frame)
+    return pd.concat(frames, ignore_index=True) if frames else None
+
+
+def _jobs(table, by, root, camp, predictions, spec, returned, triage_model, supply_valid: str) -> list[_Job]:
     common = dict(root=root, spec_max_delay_s=spec, supply_valid=supply_valid)
     jobs = [_Job("overview", "Overview", "overview", rows=table, predictions=predictions, **common)]
     for key, rows in groups(table, by, "--by"):
@@ -367,7 +390,10 @@ def _jobs(table, by, root, camp, predictions, spec, returned, design, supply_val
         else:
             chosen = pick_traces(baseline.set_index("capture_id")["verdict"])
         picked = baseline[baseline["capture_id"].isin(chosen)]
-        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, triage_rows=table[same_lot], design=design,
+        # a part alone in its lot is triaged against the other lots (at the same set-ups)
+        triage_rows = table[same_lot] if ((labels != part) & same_lot).any() else table
+        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, triage_rows=triage_rows,
+                         triage_model=triage_model,
                          records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),
                          baseline_rows=picked,
                          baseline_records=tuple(camp.records(list(picked["capture_id"]))) if camp is not None else (),
@@ -376,6 +402,29 @@ def _jobs(table, by, root, camp, predictions, spec, returned, design, supply_val
 
 
 # -- HTML sections ------------------------------------------------------------------------------
+def _part_section(label: str, rep, pictures) -> report_html.Section:
+    """A returned part: the conclusion, the hypotheses ranked by posterior, the deciding captures."""
+    anchor = report_html.anchor_for("p " + label)
+    if rep is None:
+        return report_html.Section(anchor, label, pictures=pictures, text="triage could not be run", nav_group="parts")
+    llr = "—" if rep.log_lr_to_runner_up is None else f"{rep.log_lr_to_runner_up:.2f} nats"
+    facts = [("conclusion", rep.conclusion.text), ("most likely", f"{rep.top.name} ({rep.top.posterior:.2f})"),
+             (f"ln LR over {rep.hypotheses[1].name}", llr), ("next experiment", rep.next_experiment.text)]
+    hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.name, "posterior": h.posterior,
+                         "ln LR to next": h.log_lr_to_next, "where": h.where, "what": h.title,
+                         "evidence": plots.evidence_text(h.evidence), "bench check": h.bench_check}
+                        for i, h in enumerate(rep.hypotheses) if h.testable])
+    tables = [report_html.Table("Hypotheses, ranked by posterior probability", hyp)]
+    top, runner = rep.deciding_evidence["for"], rep.deciding_evidence["against"]
+    for key, caption in (("against_healthy", f"Captures that set {top} apart from the healthy pattern (nats)"),
+                         ("captures", f"Captures that decided {top} over {runner} (nats)")):
+        deciding = rep.deciding_table(key)
+        if len(deciding):
+            tables.append(report_html.Table(caption, deciding))
+    return report_html.Section(anchor, label, facts=facts, pictures=pictures, tables=tables,
+                               text=" ".join(rep.notes), nav_group="parts")
+
+
 GROUP_COLUMNS = ("n_captures", "n_parts", "n_parts_stuck", "parts_stuck_upper95", "parts_stuck_ppm_upper95",
                  "start_stuck_rate", "start_stuck_upper95", "n_started", "n_ringing", "n_slow_start", "n_wrong_level",
                  "n_incomplete", "n_recollapse", "n_stuck_at_zero", "n_no_supply", "n_setups", "intermittent_parts")
@@ -479,12 +528,8 @@ def _sections(table, by, stats, comparisons, jobs, rendered, failed, about, limi
     sections.append(report_html.Section("s-failures", "Failures", tables=[report_html.Table(
         f"{len(failures)} captures that did not simply start", shown, note=note)], nav_group="overview"))
     for job in (j for j in jobs if j.kind == "part"):
-        hyp = pd.DataFrame([{"rank": i + 1, "hypothesis": h.title, "score": h.score,
-                             "evidence": plots.evidence_text(h.evidence), "next experiment": h.next_experiment}
-                            for i, h in enumerate(rendered[job.label].hypotheses if job.label in rendered else ())])
-        sections.append(report_html.Section(report_html.anchor_for("p " + job.label), job.label,
-                                            pictures=pictures(job.label), tables=[report_html.Table("Hypotheses", hyp)],
-                                            nav_group="parts"))
+        sections.append(_part_section(job.label, rendered[job.label].triage if job.label in rendered else None,
+                                      pictures(job.label)))
     limit_rows = pd.DataFrame([*((k, v) for k, v in about.items()), *((f"limits.{k}", v) for k, v in limits.items())],
                               columns=["item", "value"]).astype({"value": object})
     sections.append(report_html.Section("s-limits", "Limits and version", tables=[report_html.Table(

@@ -596,9 +596,9 @@ def qq_plot(pairs: Sequence[tuple[str, Any, Any]], *, title: str) -> Plot:
 
 # ---------------------------------------------------------------------------------------------
 def hypothesis_fields(h) -> dict[str, Any]:
-    """name, title, score, evidence, next_experiment of a ranked hypothesis (an object or a mapping)."""
+    """name, title, posterior, where, evidence, bench_check of a ranked hypothesis (an object or a mapping)."""
     get = h.get if isinstance(h, Mapping) else lambda k, d=None: getattr(h, k, d)
-    return {k: get(k) for k in ("name", "title", "score", "evidence", "next_experiment")}
+    return {k: get(k) for k in ("name", "title", "posterior", "where", "evidence", "bench_check")}
 
 
 def evidence_text(evidence) -> str:
@@ -631,10 +631,10 @@ class TriagePanel:
 
 
 def triage_sheet(panels: Sequence[TriagePanel], hypotheses: Sequence, captures: pd.DataFrame, *,
-                 part_label: str, lot_label: str = "lot") -> Plot:
+                 part_label: str, lot_label: str = "lot", conclusion: str = "", next_experiment: str = "") -> Plot:
     """One A4 page for a returned part: its traces against its lot's envelope (a panel per set-up,
-    e.g. per ramp time, at most three), its captures with verdicts, and the ranked hypotheses with
-    their evidence and the next bench experiment."""
+    e.g. per ramp time, at most three), its captures with verdicts, the conclusion and the next
+    experiment, and the hypotheses ranked by posterior probability with their evidence and bench check."""
     with _styled():
         fig = _figure(style.FIGSIZE_A4)
         n_rows = min(len(captures), _MAX_TABLE_ROWS)
@@ -661,7 +661,7 @@ def triage_sheet(panels: Sequence[TriagePanel], hypotheses: Sequence, captures: 
         hyp = fig.add_subplot(grid[2])
         hyp.set_axis_off()
         rows = [hypothesis_fields(h) for h in hypotheses]
-        _hypotheses_block(hyp, rows)
+        _hypotheses_block(hyp, rows, conclusion, next_experiment)
         fig.suptitle(f"Triage sheet · returned part {part_label} against {lot_label}", x=0.02, ha="left")
     return Plot("triage", fig, {"n_traces": len(verdicts), "panels": [p.title for p in shown], "hypotheses": rows,
                                 "captures": captures})
@@ -725,32 +725,39 @@ def _captures_table(ax, captures: pd.DataFrame, max_rows: int = _MAX_TABLE_ROWS)
             cell.set_facecolor(vs.colour + "40")  # the colour at 25 % opacity; the text names it
 
 
-def _hypotheses_block(ax, rows: Sequence[Mapping], max_rows: int = 6) -> None:
-    """Hypotheses with a score above zero, best first: a score bar, the title, evidence and next step."""
-    ax.set_title("Hypotheses, most likely first", fontsize=10)
-    shown = [r for r in rows if float(r["score"] or 0.0) > 0][:max_rows]
-    if not shown:
-        ax.text(0.0, 0.95, "no hypothesis scores above zero: nothing in this part's captures differs from its lot",
-                fontsize=9, transform=ax.transAxes, va="top")
-        return
-    top = max(float(r["score"]) for r in shown)
+MIN_SHOWN_POSTERIOR = 0.01  # hypotheses below it are left to the HTML report
+
+
+def _hypotheses_block(ax, rows: Sequence[Mapping], conclusion: str = "", next_experiment: str = "",
+                      max_rows: int = 5) -> None:
+    """The conclusion and next experiment, then the hypotheses with a posterior of at least 1 %, most
+    likely first: a bar as long as the posterior, the name and where, evidence and bench check."""
+    ax.set_title("Hypotheses by posterior probability", fontsize=10)
     line = 0.029  # one 7.5 pt line (1.25 spacing), in axes fraction of this panel
     y = 0.97
+    for label, text in (("conclusion", conclusion), ("next experiment", next_experiment)):
+        if text:
+            wrapped = textwrap.fill(f"{label}: {text}", 118)
+            ax.text(0.0, y, wrapped, transform=ax.transAxes, fontsize=8, va="top", weight="bold" if label ==
+                    "conclusion" else "normal", color=style.INKS.ink, linespacing=1.25, gid=label.replace(" ", "_"))
+            y -= 1.1 * line * (wrapped.count("\n") + 1) + 0.4 * line
+    shown = [r for r in rows if float(r["posterior"] or 0.0) >= MIN_SHOWN_POSTERIOR][:max_rows]
     for rank, r in enumerate(shown, start=1):
-        score = float(r["score"])
+        posterior = float(r["posterior"])
         body = "evidence: " + evidence_text(r["evidence"])
-        if r["next_experiment"]:
-            body += "\nnext: " + str(r["next_experiment"])
+        if r["bench_check"]:
+            body += "\nbench check: " + str(r["bench_check"])
         wrapped = "\n".join(textwrap.fill(part, 108) for part in body.splitlines())
         height = 1.6 * line + 1.08 * line * (wrapped.count("\n") + 1)
         if y - height < 0 and rank > 1:
             ax.text(0.0, max(y, 0.0), f"… {len(shown) - rank + 1} more in the HTML report", transform=ax.transAxes,
                     fontsize=7.5, va="top", color=style.INKS.slate)
             break
-        ax.add_patch(Rectangle((0.0, y - 0.022), 0.08 * score / top, 0.018, transform=ax.transAxes,
-                               color=style.INKS.accent, alpha=0.85, gid="score"))
-        ax.text(0.09, y, f"{score:.2f}", transform=ax.transAxes, fontsize=8, va="top", color=style.INKS.slate)
-        title = textwrap.shorten(f"{rank}. {r['title'] or r['name']}", 92, placeholder=" …")
+        ax.add_patch(Rectangle((0.0, y - 0.022), 0.08 * posterior, 0.018, transform=ax.transAxes,
+                               color=style.INKS.accent, alpha=0.85, gid="posterior"))
+        ax.text(0.09, y, f"{posterior:.2f}", transform=ax.transAxes, fontsize=8, va="top", color=style.INKS.slate)
+        where = f" — {r['where']}" if r.get("where") else ""
+        title = textwrap.shorten(f"{rank}. {r['name']}{where}", 92, placeholder=" …")
         ax.text(0.14, y, title, transform=ax.transAxes, fontsize=9.5, weight="bold", va="top")
         ax.text(0.155, y - 1.3 * line, wrapped, transform=ax.transAxes, fontsize=7.5, va="top", color=style.INKS.ink,
                 linespacing=1.25)

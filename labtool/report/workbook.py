@@ -129,11 +129,12 @@ def flatten(mapping: Mapping[str, Any], prefix: str = "") -> list[tuple[str, Any
 
 def write_workbook(path: str | os.PathLike, measurements: pd.DataFrame, *, summary: pd.DataFrame | None = None,
                    comparison: pd.DataFrame | None = None, limits: Mapping[str, Any] | None = None,
-                   about: Mapping[str, Any] | None = None) -> Path:
+                   about: Mapping[str, Any] | None = None, triage: pd.DataFrame | None = None) -> Path:
     """Write the workbook atomically (temp file, then rename) and return its path.
 
     ``summary``: one row per group (lot statistics); ``comparison``: one row per group against the
-    model; ``limits``: the measurement limits used; ``about``: tool version, campaign, time, …
+    model; ``limits``: the measurement limits used; ``about``: tool version, campaign, time, …;
+    ``triage``: the returned parts' ranked hypotheses (a Triage sheet after Failures).
     """
     path = Path(path)
     wb = Workbook(write_only=True)
@@ -144,5 +145,7 @@ def write_workbook(path: str | os.PathLike, measurements: pd.DataFrame, *, summa
     _write_table(wb, "Measurements", measurements, measurement_columns(measurements))
     failures = measurements[measurements["verdict"] != "started"] if "verdict" in measurements else measurements
     _write_table(wb, "Failures", failures, [c for c in FAILURE_COLUMNS if c in measurements.columns])
+    if triage is not None and len(triage):
+        _write_table(wb, "Triage", triage)
     _key_values(wb, "Limits", [*flatten(about or {}), *flatten(limits or {}, "limits.")])
     return write_atomic(path, wb.save, "workbook")

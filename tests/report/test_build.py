@@ -9,6 +9,7 @@ from openpyxl import load_workbook
 
 from labtool.errors import UsageError
 from labtool.report.build import pick_traces, write_report
+from labtool.stats.triage import STUCK_CAUSES
 from labtool.store import Campaign
 from tests.report.chromium import render_and_check
 from tests.report.tables import RAMPS
@@ -49,7 +50,16 @@ def test_report_writes_html_workbook_and_plots(report, tmp_path):
     assert "supply at 90 % of its final level" in section  # the captions say what supply valid was
 
     wb = load_workbook(files.workbook)
-    assert wb.sheetnames == ["Summary", "Measurements", "Failures", "Limits"]
+    assert wb.sheetnames == ["Summary", "Measurements", "Failures", "Triage", "Limits"]
+    # The returned part's ranked hypotheses: posteriors that sum to one, the conclusion on the first row;
+    # its one stuck start is on the slower ramp only, so a stuck cause leads (invented traces, conftest.py).
+    head, *triage_rows = list(wb["Triage"].iter_rows(values_only=True))
+    triage_sheet = [dict(zip(head, r)) for r in triage_rows]
+    assert {r["part"] for r in triage_sheet} == {"ZR24A/p04"} and [r["rank"] for r in triage_sheet] == list(range(1, 13))
+    assert sum(r["posterior"] for r in triage_sheet) == pytest.approx(1.0)
+    assert triage_sheet[0]["name"] in STUCK_CAUSES and triage_sheet[0]["conclusion"] and triage_sheet[0]["next_experiment"]
+    assert "stuck_at_zero" in triage_sheet[0]["deciding_captures"] and triage_sheet[1]["conclusion"] is None
+    assert "Hypotheses, ranked by posterior probability" in page and "baseline too small at" in page
     assert wb["Measurements"].max_row == 1 + 16
     summary = list(wb["Summary"].iter_rows(values_only=True))
     assert [r[:2] for r in summary[1:]] == [("group", "ZR24A"), ("setup", "ZR24A"), ("setup", "ZR24A"),

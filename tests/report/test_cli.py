@@ -7,6 +7,7 @@ import labtool.cli.commands.demo as demo
 from labtool.cli import main
 from labtool.errors import UsageError
 from labtool.execute import parse_scheduler
+from labtool.stats.triage import STUCK_CAUSES
 from labtool.store import Campaign
 
 
@@ -17,6 +18,16 @@ def test_report_command_writes_the_files_and_says_where(campaign, tmp_path, caps
     assert f"report:   {out / 'report.html'}" in printed and f"workbook: {out / 'report.xlsx'}" in printed
     assert (out / "report.html").is_file() and len(list((out / "plots").glob("*.png"))) >= 5
     assert len(load_workbook(out / "report.xlsx")["Summary"]["A"]) == 1 + 2 * 4  # 2 lots × 2 ramps, group + set-up
+
+
+def test_report_command_triages_the_parts_it_is_given_besides_the_returned_ones(campaign, tmp_path, capsys):
+    out = tmp_path / "rep"
+    assert main(["report", str(campaign), "--out", str(out), "--part", "ZR24B/p02", "--scheduler", "local:1"]) == 0
+    capsys.readouterr()
+    names = {p.name for p in (out / "plots").glob("*-triage.png")}
+    assert names == {"part-zr24a-p04-triage.png", "part-zr24b-p02-triage.png"}  # tagged returned, and given
+    parts = {r[0] for r in load_workbook(out / "report.xlsx")["Triage"].iter_rows(min_row=2, values_only=True)}
+    assert parts == {"ZR24A/p04", "ZR24B/p02"}
 
 
 @pytest.mark.parametrize("argv, code, message", [
@@ -64,6 +75,9 @@ def test_demo_runs_the_scenario_end_to_end(monkeypatch, tmp_path, capsys):
     assert f"report:   {out / 'report' / 'report.html'}" in printed
     page = (out / "report" / "report.html").read_text(encoding="utf-8")
     assert 'id="s-p-zr24b-p04"' in page and 'id="s-p-zr24a-p01"' in page  # triage of the failing parts
+    # the part stuck at zero is triaged to a stuck cause, with the model's recipes behind the stories
+    stuck = next(line for line in printed.splitlines() if line.startswith("    triage ZR24B/p04: "))
+    assert stuck.split(": ")[1].split()[0] in STUCK_CAUSES and " first (posterior 0." in stuck
     assert "Against the model:" in page
     with Campaign.open(out / "campaign") as camp:
         assert len(camp.measurements()) == 36

@@ -252,15 +252,16 @@ def test_delays_spanning_decades_and_signs_get_a_symmetric_log_axis():
 def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses():
     lot = [ramp_trace(f"l{i}", d) for i, d in enumerate([10e-6, 11e-6, 12e-6])]
     part = [ramp_trace("p1", 30e-6, verdict="slow_start"), ramp_trace("p2", None, verdict="stuck_at_zero")]
-    hypotheses = [{"name": "weak startup current", "score": 0.8, "evidence": {"delay_ratio": 2.5},
-                   "next_experiment": "raise the ramp time and repeat"},
-                  {"name": "bistable near escape", "score": 0.3, "evidence": ["1 of 2 cycles stuck"],
-                   "next_experiment": ""},
-                  {"name": "never shown", "score": 0.0, "evidence": {}, "next_experiment": ""}]
+    hypotheses = [{"name": "weak_startup_slow", "posterior": 0.8, "where": "at or below -40 °C",
+                   "evidence": {"delay_ratio": 2.5}, "bench_check": "raise the ramp time and repeat"},
+                  {"name": "bistable_intermittent", "posterior": 0.19, "where": "at every set-up",
+                   "evidence": ["1 of 2 cycles stuck"], "bench_check": ""},
+                  {"name": "never_shown", "posterior": 0.005, "where": "", "evidence": {}, "bench_check": ""}]
     captures = pd.DataFrame({"temperature_c": [25.0, -40.0], "ramp_s": [1e-4, 1e-3], "repeat": [1, 1],
                              "verdict": ["slow_start", "stuck_at_zero"], "delay_s": [30e-6, None]})
     panels = [plots.TriagePanel("ramp 100 µs", part[:1], envelope(lot)), plots.TriagePanel("ramp 1 ms", part[1:])]
-    plot = plots.triage_sheet(panels, hypotheses, captures, part_label="A/p07", lot_label="A")
+    plot = plots.triage_sheet(panels, hypotheses, captures, part_label="A/p07", lot_label="A",
+                              conclusion="weak_startup_slow (posterior 0.80)", next_experiment="Power-cycle 5 times")
     fig = plot.figure
     assert tuple(fig.get_size_inches()) == pytest.approx(style.FIGSIZE_A4)
     for ax, n_part, n_median in zip(fig.axes[:2], (1, 1), (1, 0)):  # each set-up its own panel
@@ -268,15 +269,16 @@ def test_triage_sheet_shows_the_part_against_its_lot_and_the_ranked_hypotheses()
         assert len([ln for ln in ax.get_lines() if ln.get_gid() == "median"]) == n_median
     assert [ax.get_title(loc="left") for ax in fig.axes[:2]] == ["ramp 100 µs", "ramp 1 ms"]
     texts = _texts(fig)
-    assert "1. weak startup current" in texts and "2. bistable near escape" in texts
-    assert any("delay_ratio = 2.5" in t and "next: raise the ramp time" in t for t in texts)
+    assert "1. weak_startup_slow — at or below -40 °C" in texts and "2. bistable_intermittent — at every set-up" in texts
+    assert any("delay_ratio = 2.5" in t and "bench check: raise the ramp time" in t for t in texts)
+    assert "conclusion: weak_startup_slow (posterior 0.80)" in texts and "next experiment: Power-cycle 5 times" in texts
     (table,) = [t for ax in fig.axes for t in ax.tables]
     cells = {cell.get_text().get_text() for cell in table.get_celld().values()}
     assert {"slow start", "stuck at zero", "30 µs", "—", "-40 °C", "1 ms"} <= cells
-    bars = sorted(_by_gid(fig, Rectangle, "score"), key=lambda r: -r.get_width())
-    assert len(bars) == 2 and bars[0].get_width() == pytest.approx(0.08)
-    assert bars[1].get_width() == pytest.approx(0.08 * 0.3 / 0.8)  # proportional to the score
-    assert not any("never shown" in t for t in texts)  # a zero score is not a hypothesis
+    bars = sorted(_by_gid(fig, Rectangle, "posterior"), key=lambda r: -r.get_width())
+    assert len(bars) == 2 and bars[0].get_width() == pytest.approx(0.08 * 0.8)  # as long as the posterior
+    assert bars[1].get_width() == pytest.approx(0.08 * 0.19)
+    assert not any("never_shown" in t for t in texts)  # below 1 % it is left to the HTML report
 
 
 def test_plots_render_to_png():

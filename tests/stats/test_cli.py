@@ -98,24 +98,6 @@ def test_compare_needs_exactly_one_source(campaign, capsys):
     capsys.readouterr()
 
 
-def test_triage_json_and_text(campaign, capsys):
-    assert main(["triage", campaign, "--part", "ZR24B/p02", "--json"]) == 0
-    (rec,) = _json_lines(capsys)
-    assert set(rec) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "hypotheses"}
-    assert rec["part"] == "ZR24B/p02" and rec["n_captures"] == 8
-    assert rec["hypotheses"][0]["name"] == "slow_ramp_miss"
-    assert set(rec["hypotheses"][0]) == {"name", "title", "score", "evidence", "next_experiment"}
-    assert main(["triage", campaign, "--part", "ZR24B/p02"]) == 0
-    out = capsys.readouterr().out
-    assert out.startswith("part ZR24B/p02: 8 captures (started 4, stuck_at_zero 4)")
-    assert "next: Sweep the ramp time" in out
-
-
-def test_triage_unknown_part(campaign, capsys):
-    assert main(["triage", campaign, "--part", "ZR24B/p77"]) == 2
-    assert capsys.readouterr().err.strip() == "labtool triage: --part ZR24B/p77: no measured captures of that part"
-
-
 @pytest.fixture(scope="module")
 def design_file(tmp_path_factory):
     from labtool.model import Design
@@ -182,12 +164,3 @@ def test_calibrate_writes_a_loadable_design_and_reports_json(tmp_path, design_fi
 def test_calibrate_bad_fit_name(campaign, design_file, capsys):
     assert main(["calibrate", campaign, "--model", design_file, "--fit", "nosuch_a"]) == 2
     assert capsys.readouterr().err.strip().startswith("labtool calibrate: --fit nosuch_a: not a design parameter")
-
-
-def test_triage_with_the_model_adds_the_startup_margin(campaign, design_file, capsys):
-    assert main(["triage", campaign, "--part", "ZR24B/p02", "--model", design_file, "--json"]) == 0
-    (rec,) = _json_lines(capsys)
-    top = rec["hypotheses"][0]
-    assert top["name"] == "slow_ramp_miss"
-    margin = top["evidence"]["model_i_start_min_a_by_temperature_c"]
-    assert set(margin) == {"-40", "25"} and all(0 < v < top["evidence"]["model_i_start_a"] for v in margin.values())

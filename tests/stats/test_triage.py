@@ -1,122 +1,171 @@
-"""Triage: each hypothesis from a synthetic part built to show it (invented data, stating the property
-that the pattern built in is the one ranked first)."""
+"""Triage on generated parts through the store and the measurement engine: what it weighs, what it
+refuses to pool, what it says when it cannot decide, and its JSON contract.
 
+Invented parts stating properties (tests/stats/triage_parts.py), beside a lot of six healthy parts.
+"""
+
+import numpy as np
+import pandas as pd
 import pytest
 
 from labtool.errors import UsageError
-from labtool.stats.triage import HYPOTHESES, triage
-from tests.stats.tables import measurement_table, set_verdict
+from labtool.stats.triage import CAUSES, HEALTHY, NO_FIT, load_resolution, triage
+from labtool.stats.triage.evidence import collect
+from tests.stats.triage_parts import LOT, closed_form_starts, store_and_measure
 
-PART = "p05"
-
-
-def _lot():
-    return measurement_table(parts=10, seed=13)
+LOT_PARTS = [f"h{i:02d}" for i in range(6)]
+ALL_NAMES = {*CAUSES, HEALTHY, NO_FIT}
 
 
-def _build(kind):
-    df = _lot()
-    me = df["part"] == PART
-    if kind == "fixture_supply_invalid":
-        return set_verdict(df, me, "no_supply")
-    if kind == "dead_everywhere":
-        return set_verdict(df, me, "stuck_at_zero")
-    if kind == "slow_ramp_miss":
-        return set_verdict(df, me & (df["ramp_s"] == 1e-3), "stuck_at_zero")
-    if kind == "cold_only_stuck":
-        return set_verdict(df, me & (df["temperature_c"] == -40.0), "stuck_at_zero")
-    if kind == "hot_only_stuck":
-        return set_verdict(df, me & (df["temperature_c"] == 125.0), "stuck_at_zero")
-    if kind == "falls_back":
-        return set_verdict(df, me & (df["ramp_s"] == 1e-3), "recollapse")
-    if kind == "bistable_intermittent":
-        return set_verdict(df, me & (df["repeat"] == 1), "stuck_at_zero")
-    if kind == "weak_startup_slow":
-        df.loc[me, "delay_s"] *= 5.0
-        return df
-    if kind == "excess_ringing":
-        df.loc[me, "overshoot_pct"] = 25.0
-        return df
-    if kind == "level_fault":
-        df.loc[me, "vout_final_v"] = 1.13
-        return df
-    raise AssertionError(kind)
+@pytest.fixture(scope="module")
+def lot(tmp_path_factory):
+    starts = []
+    for i, part in enumerate(LOT_PARTS):
+        starts += closed_form_starts(part, "healthy", 500 + i, current=True)
+    # ζ = 0.85: a second-order start overshoots by 100·exp(−ζπ/√(1−ζ²)) = 0.63 % (Ogata §5-3), one 8-bit code
+    starts += [s for s in closed_form_starts("q01", "healthy", 601, current=True)]
+    starts += closed_form_starts("d01", "dead_everywhere", 602, current=True)
+    starts += closed_form_starts("k01", "cold_only_stuck", 603, current=True)[:1]  # one capture only
+    starts += closed_form_starts("w01", "weak_startup_slow", 604, ramps=(10e-6, 20e-3))  # 20 ms: no one else
+    starts += closed_form_starts("h00", "healthy", 500, ramps=(5e-3,))[:1]  # a small baseline at 5 ms ...
+    starts += closed_form_starts("w01", "weak_startup_slow", 604, ramps=(5e-3,))  # ... where w01 was tested too
+    starts += closed_form_starts("z01", "hot_only_stuck", 605)  # alone in lot TL99
+    root = tmp_path_factory.mktemp("lot") / "camp"
+    table, records = store_and_measure(root, starts, lots={"z01": "TL99"})
+    return table, load_resolution(str(root), records)
 
 
-KINDS = ["fixture_supply_invalid", "dead_everywhere", "slow_ramp_miss", "cold_only_stuck", "hot_only_stuck",
-         "falls_back", "bistable_intermittent", "weak_startup_slow", "excess_ringing", "level_fault"]
+def _run(lot, part, **kwargs):
+    table, resolution = lot
+    return triage(table, f"{LOT}/{part}" if "/" not in part else part, resolution=resolution, **kwargs)
 
 
-def test_every_hypothesis_has_a_builder():
-    assert len(HYPOTHESES) == len(KINDS)
+def test_a_healthy_part_says_no_hypothesis_above_the_healthy_pattern(lot):
+    rep = _run(lot, "h03")
+    assert rep.top.name == HEALTHY and rep.conclusion.kind == "healthy" and rep.conclusion.cause is None
+    assert rep.conclusion.text.startswith("no hypothesis above the healthy pattern (posterior ")
+    assert rep.top.posterior > 0.5
 
 
-@pytest.mark.parametrize("kind", KINDS)
-def test_the_built_pattern_ranks_first(kind):
-    rep = triage(_build(kind), f"ZR24A/{PART}")
-    top, second = rep.hypotheses[0], rep.hypotheses[1] if len(rep.hypotheses) > 1 else None
-    assert top.name == kind, [(h.name, round(h.score, 2)) for h in rep.hypotheses]
-    assert top.score >= 0.6
-    assert second is None or second.score < top.score
-    assert top.next_experiment and top.evidence
-    assert rep.part == "ZR24A/p05" and rep.n_captures == 18 and rep.n_baseline == 162
+def test_a_code_sized_overshoot_on_a_quiet_trace_is_not_ringing(lot):
+    # The lot starts without overshoot; q01 overshoots by one code (0.63 %): below the resolution floor
+    # of the capture, so not evidence of ringing.
+    table, _ = lot
+    q01 = table[table["part"] == "q01"]
+    assert q01["overshoot_pct"].max() < 1.5 and (q01["verdict"] == "started").all()
+    rep = _run(lot, "q01")
+    ringing = next(h for h in rep.hypotheses if h.name == "excess_ringing")
+    assert rep.top.name == HEALTHY and ringing.posterior < 0.05
 
 
-def test_a_good_part_scores_low_everywhere():
-    rep = triage(_lot(), "ZR24A/p02")
-    assert max(h.score for h in rep.hypotheses) < 0.5
+def test_a_dead_part_with_leakage_current_only(lot):
+    rep = _run(lot, "d01")
+    assert rep.top.name == "dead_everywhere" and rep.conclusion.kind == "cause" and rep.top.posterior > 0.9
+    ev = rep.top.evidence
+    # started parts draw ~10 µA, the dead one 2 nA: leakage level (common practice, no source)
+    assert ev["isupply_at_leakage"] is True and ev["lot_isupply_a"] == pytest.approx(10e-6, rel=0.05)
+    assert ev["in_region"] == {"stuck_at_zero": 18} and rep.top.where == "at every set-up"
+    assert rep.deciding_evidence["for"] == "dead_everywhere" and rep.deciding_evidence["captures"]
 
 
-def test_evidence_numbers_for_slow_ramps_and_slow_start():
-    rep = triage(_build("slow_ramp_miss"), "ZR24A/p05")
-    h = {h.name: h for h in rep.hypotheses}
-    assert h["slow_ramp_miss"].evidence["stuck_fraction_by_ramp_s"] == {"1e-05": 0.0, "0.001": 1.0}
-    assert rep.verdicts == {"started": 9, "stuck_at_zero": 9}
-    slow = {h.name: h for h in triage(_build("weak_startup_slow"), "ZR24A/p05").hypotheses}["weak_startup_slow"]
-    assert slow.evidence["modified_z_vs_lot"] > 10
-    assert slow.evidence["part_delay_s"] == pytest.approx(5 * slow.evidence["lot_delay_s"], rel=0.3)
+def test_one_capture_is_too_little_data(lot):
+    rep = _run(lot, "k01")
+    assert rep.n_captures == 1 and rep.conclusion.kind == "too_little_data" and rep.conclusion.cause is None
+    assert rep.conclusion.text.startswith("too little data to name a cause: 1 capture at 1 set-up")
+    untestable = {h.name for h in rep.hypotheses if not h.testable}
+    assert {"cold_only_stuck", "hot_only_stuck", "slow_ramp_miss"} <= untestable  # no edge with one set-up
+    assert all(h.posterior == 0 for h in rep.hypotheses if not h.testable)
 
 
-def test_part_naming_errors():
-    df = measurement_table(lots=("ZR24A", "ZR24B"))
-    with pytest.raises(UsageError, match="--part p03: in lots ZR24A, ZR24B; give LOT/PART"):
-        triage(df, "p03")
-    with pytest.raises(UsageError, match="--part ZR24A/p99: no measured captures of that part"):
-        triage(df, "ZR24A/p99")
-    assert triage(df, "p03", lot="ZR24B").part == "ZR24B/p03"
-    json = triage(df, "ZR24B/p03").to_json_dict()
-    assert set(json) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "hypotheses"}
-    assert set(json["hypotheses"][0]) == {"name", "title", "score", "evidence", "next_experiment"}
+def test_small_and_missing_baselines_are_named_not_pooled(lot):
+    rep = _run(lot, "w01")
+    none, small = rep.notes
+    assert none.startswith("no baseline at ramp 5 ms, 25 °C, 1.8 V; ramp 5 ms, 125 °C, 1.8 V; ramp 20 ms, -40 °C, "
+                           "1.8 V; ramp 20 ms, 25 °C, 1.8 V; ramp 20 ms, 125 °C, 1.8 V: no other part was measured")
+    assert small.startswith("baseline too small at ramp 5 ms, -40 °C, 1.8 V (1): fewer than 5 captures of other parts")
+    assert rep.top.name == "weak_startup_slow"
 
 
-def test_one_quantisation_step_is_not_a_level_fault():
-    # An 8-bit record of a 1.2 V level on a 2 V range has 7.8 mV codes (common practice, no source):
-    # a lot read at one code has MAD 0; a part one code lower must not look like a trim fault,
-    # while one 70 mV low must.
-    df = _lot()
-    df["vout_final_v"] = 1.2031
-    df.loc[df["part"] == PART, "vout_final_v"] = 1.2031 - 0.0078
-    h = {h.name: h for h in triage(df, f"ZR24A/{PART}").hypotheses}
-    assert h["level_fault"].score < 0.2
-    df.loc[df["part"] == PART, "vout_final_v"] = 1.13
-    assert triage(df, f"ZR24A/{PART}").hypotheses[0].name == "level_fault"
+def test_evidence_at_a_set_up_does_not_depend_on_other_set_ups(lot):
+    # Never pooled: change the lot at the 100 ms ramps completely; the part's weights at 10 µs and
+    # 1 ms ramps stay exactly what they were.
+    table, resolution = lot
+    before = collect(table, f"{LOT}/h03", resolution=resolution)
+    other = table.copy()
+    slow = (other["ramp_s"] == 0.1) & (other["part"] != "h03")
+    other.loc[slow, ["delay_s", "vout_final_v"]] *= 3.0
+    other.loc[slow, "verdict"] = "stuck_at_zero"
+    after = collect(other, f"{LOT}/h03", resolution=resolution)
+    kept = (before.rows["ramp_s"] < 0.1).to_numpy()
+    for name, m in before.metrics.items():
+        assert np.array_equal(m.log_healthy[kept], after.metrics[name].log_healthy[kept]), name
+    fast = [i for i, s in enumerate(before.setups) if s[before.keys.index("ramp_s")] < 0.1]
+    assert np.array_equal(before.log_healthy_setup[fast], after.log_healthy_setup[fast])
+    assert not np.array_equal(before.log_healthy_setup, after.log_healthy_setup)
 
 
-def test_one_ringing_capture_is_already_a_finding():
-    df = _lot()
-    one = df.index[(df["part"] == PART)][4]
-    df.loc[one, ["verdict", "overshoot_pct"]] = ["ringing", 22.0]
-    top = triage(df, f"ZR24A/{PART}").hypotheses[0]
-    assert top.name == "excess_ringing" and top.score == pytest.approx(0.5 + 0.5 / 18)
+def test_only_the_current_version_of_a_capture_counts(lot):
+    # A re-ingested file leaves an older version in the catalog; its old verdict must not be counted.
+    table, resolution = lot
+    mine = table[table["part"] == "h03"].copy()
+    old = mine.assign(version=mine["version"] - 1, verdict="stuck_at_zero", capture_id=mine["capture_id"] + "-v0")
+    with_old = triage(pd.concat([table, old], ignore_index=True), f"{LOT}/h03", resolution=resolution)
+    plain = _run(lot, "h03")
+    assert with_old.n_captures == plain.n_captures == 18
+    assert [h.posterior for h in with_old.hypotheses] == pytest.approx([h.posterior for h in plain.hypotheses])
 
 
-def test_stuck_part_drawing_only_leakage_current_is_said_so():
-    # Invented lot: started parts draw ~10 µA, the stuck part 2 nA (leakage level; common practice,
-    # no source: a dead core and startup draw nothing but junction leakage).
-    df = _build("dead_everywhere")
-    df["isupply_final_a"] = 10e-6
-    df.loc[df["part"] == PART, "isupply_final_a"] = 2e-9
-    dead = next(h for h in triage(df, f"ZR24A/{PART}").hypotheses if h.name == "dead_everywhere")
-    assert dead.evidence["stuck_isupply_a"] == pytest.approx(2e-9)
-    assert dead.evidence["lot_isupply_a"] == pytest.approx(10e-6)
-    assert dead.evidence["isupply_at_leakage"] is True
+def test_a_part_alone_in_its_lot_is_compared_with_the_other_lots(lot):
+    rep = _run(lot, "TL99/z01")
+    assert rep.lot == "TL99" and rep.n_baseline > 0 and rep.top.name == "hot_only_stuck"
+    assert any("is the only part of lot TL99" in n for n in rep.notes)
+
+
+def test_json_contract(lot):
+    rep = _run(lot, "d01")
+    js = rep.to_json_dict()
+    assert set(js) == {"part", "lot", "n_captures", "n_baseline", "verdicts", "conclusion", "hypotheses",
+                       "log_lr_to_runner_up", "deciding_evidence", "next_experiment", "notes", "model"}
+    assert js["part"] == f"{LOT}/d01" and js["model"] is None and js["verdicts"] == {"stuck_at_zero": 18}
+    names = [h["name"] for h in js["hypotheses"]]
+    assert set(names) == ALL_NAMES and len(names) == len(ALL_NAMES)
+    posts = [h["posterior"] for h in js["hypotheses"]]
+    assert posts == sorted(posts, reverse=True) and sum(posts) == pytest.approx(1.0)
+    assert set(js["hypotheses"][0]) == {"name", "title", "posterior", "prior", "log_likelihood", "log_lr_to_next",
+                                        "testable", "where", "evidence", "bench_check"}
+    first, second = js["hypotheses"][:2]
+    assert js["log_lr_to_runner_up"] == pytest.approx(first["log_likelihood"] - second["log_likelihood"])
+    assert first["log_lr_to_next"] == pytest.approx(js["log_lr_to_runner_up"])
+    assert set(js["conclusion"]) == {"kind", "cause", "text"} and js["conclusion"]["cause"] == "dead_everywhere"
+    nxt = js["next_experiment"]
+    assert set(nxt) == {"separates", "kind", "condition", "condition_text", "outcome", "power_cycles",
+                        "failures_to_decide", "per_cycle_probability", "shift_spreads", "text"}
+    assert nxt["separates"] == names[:2] and set(nxt["condition"]) == {"ramp_s", "temperature_c", "vdd_v"}
+    capture = js["deciding_evidence"]["captures"][0]
+    assert {"capture_id", "file", "ramp_s", "temperature_c", "vdd_v", "repeat", "verdict", "nats"} <= set(capture)
+    assert capture["nats"] > 0 and js["deciding_evidence"]["against"] == names[1]
+    # what sets the dead part apart from a healthy one: its stuck captures, each worth several nats
+    apart = js["deciding_evidence"]["against_healthy"]
+    assert len(apart) == 6 and all(c["verdict"] == "stuck_at_zero" and c["nats"] > 3 for c in apart)
+
+
+def test_the_next_experiment_separates_the_top_two_by_the_repeat_count_rule(lot):
+    rep = _run(lot, "h03")
+    nxt = rep.next_experiment
+    assert nxt.separates == (HEALTHY, rep.hypotheses[1].name)
+    if nxt.kind == "failure_count":  # the count follows n ≥ ln 0.05 / ln(1 − p) against a clean lot
+        p = max(nxt.per_cycle_probability.values())
+        assert nxt.power_cycles >= np.ceil(np.log(0.05) / np.log(1 - p)) and nxt.condition_text in nxt.text
+    assert f"{nxt.power_cycles} " in nxt.text
+
+
+def test_part_naming_errors(lot):
+    table, _ = lot
+    with pytest.raises(UsageError, match=r"--part TL01/p99: no measured captures of that part"):
+        triage(table, "TL01/p99")
+    two_lots = table.assign(lot=np.where(table["part"] == "h01", "TL02", table["lot"]))
+    two_lots = pd.concat([two_lots, table[table["part"] == "h01"]], ignore_index=True)
+    with pytest.raises(UsageError, match="--part h01: in lots TL01, TL02; give LOT/PART"):
+        triage(two_lots, "h01")
+    assert triage(table, "h02", lot=LOT).part == f"{LOT}/h02"
+

@@ -103,6 +103,8 @@ def run(args) -> int:
         files = write_report(camp, out / "report", by=("lot",), design=design, scheduler=scheduler,
                              predictions=predictions, model_samples=DEMO_MODEL_SAMPLES, seed=DEMO_SEED,
                              parts=returned, title="ZR-4410 startup report (demo scenario)")
+    for rep in files.triage:
+        print(f"    triage {rep.part}: {rep.top.name} first (posterior {rep.top.posterior:.2f}); {rep.conclusion.text}")
     status = print_files(files)
     print(f"\nOpen {files.html.resolve()} in a browser; the workbook is {files.workbook.resolve()}.")
     return max(status, 1 if ingested.failed or measured.failed else 0)

@@ -1,4 +1,4 @@
-"""``labtool report CAMPAIGN --out DIR [--by KEYS] [--model DESIGN] [--scheduler SPEC]``."""
+"""``labtool report CAMPAIGN --out DIR [--by KEYS] [--model DESIGN] [--part LOT/PART ...] [--scheduler SPEC]``."""
 
 from __future__ import annotations
 
@@ -16,6 +16,9 @@ def register(sub) -> None:
                    help="comma-separated columns to group by (default: lot), e.g. lot,temperature_c")
     p.add_argument("--model", metavar="DESIGN", default=None,
                    help="design file: the model's Monte Carlo at the measured set-ups is drawn and compared")
+    p.add_argument("--part", action="append", default=[], metavar="LOT/PART",
+                   help="a returned part to triage in the report, besides those tagged returned; repeat the flag "
+                        "or separate parts with commas")
     add_scheduler_option(p)
     p.set_defaults(handler=run)
 
@@ -31,6 +34,7 @@ def print_files(files: ReportFiles) -> int:
 
 
 def run(args) -> int:
-    files = write_report(args.campaign, args.out, by=args.by, design=args.model,
+    parts = [p.strip() for text in args.part for p in text.split(",") if p.strip()]
+    files = write_report(args.campaign, args.out, by=args.by, design=args.model, parts=parts,
                          scheduler=parse_scheduler(args.scheduler))
     return print_files(files)
