@@ -148,7 +148,7 @@ def measure_capture(capture: Capture, limits: Limits = Limits()) -> StartupResul
     current = capture.channel("supply_current").values if capture.has_role("supply_current") else None
     supply = capture.channel("supply").values if capture.has_role("supply") else None
     try:
-        t_ref, ref = (0.0, "supply") if supply is not None else delay_reference(capture)
+        t_ref, ref = (0.0, "supply") if supply is not None else delay_start_instant(capture)
         return measure_arrays(capture.times(), supply, output, limits, current, t_ref_s=t_ref, delay_ref=ref)
     except MeasurementError as exc:
         where = capture.provenance.source_path + (f" [{capture.provenance.locator}]" if capture.provenance.locator else "")
@@ -156,7 +156,7 @@ def measure_capture(capture: Capture, limits: Limits = Limits()) -> StartupResul
 
 
 
-def delay_reference(capture: Capture) -> tuple[float, str]:
+def delay_start_instant(capture: Capture) -> tuple[float, str]:
     """(instant, name) the delay of a capture without a supply channel counts from: the supply-valid
     instant the user gave at import, else the enable's 50 % crossing (IEEE Std 181 mid reference
     level), else the trigger instant t = 0 (scopes that trigger on the supply and keep only the output)."""
