@@ -40,6 +40,10 @@ def condition_field(key: str) -> tuple[str, str | None]:
     norm = _MORE_ALIASES.get(norm, CONDITION_ALIASES.get(norm, norm))
     if norm in CONDITION_TYPES:
         return norm, unit
+    whole = _normal(key)  # a unit suffix that is part of the field's own spelling ("supply_v")
+    whole = _MORE_ALIASES.get(whole, CONDITION_ALIASES.get(whole, whole))
+    if whole in CONDITION_TYPES:
+        return whole, unit
     return key.strip(), None
 
 
@@ -49,13 +53,21 @@ _PREAMBLE_KEYS = frozenset(CONDITION_TYPES) | {"temperature", "temp", "temp_c", 
                                                "lot_id", "wafer_id", "part_id"}
 
 
+def _unmistakable(key: str, field: str, unit: str | None) -> bool:
+    """A preamble key is a condition when its name is one of the unmistakable keys, or when it names
+    a condition field and carries a unit (``vdd_v``, ``VDD (V)``); a bare ``VDD`` is a setting."""
+    if field not in CONDITION_TYPES:
+        return False
+    return _normal(split_name_unit(key)[0]) in _PREAMBLE_KEYS or unit is not None
+
+
 def normalise_pairs(pairs: Mapping[str, object], *, known_only: bool) -> dict[str, tuple[str, str]]:
     """field → (value text, key as written). With ``known_only`` (a preamble) only unmistakable
     condition keys are kept."""
     out: dict[str, tuple[str, str]] = {}
     for key, raw in pairs.items():
         field, unit = condition_field(str(key))
-        if known_only and (field not in CONDITION_TYPES or _normal(split_name_unit(str(key))[0]) not in _PREAMBLE_KEYS):
+        if known_only and not _unmistakable(str(key), field, unit):
             continue
         value = "" if raw is None else str(raw).strip()
         if unit and NUMBER_ANY.match(value):

@@ -183,6 +183,14 @@ def test_instrument_settings_in_a_preamble_are_not_conditions(tmp_path):
     assert capture.provenance.metadata["VDD"] == "CH1"
 
 
+@pytest.mark.parametrize("line", ["# vdd_v: 1.8", "VDD (V),1.8", "Vdd[V]: 1.8", "# supply_v = 1.8"])
+def test_a_supply_key_with_its_unit_in_a_preamble_is_a_condition(tmp_path, line):
+    # A condition field named together with its unit is unmistakable; a bare "VDD" (above) is not.
+    text = line + "\ntime,vdd,vref\n0,0,0\n1e-6,1.8,1.2\n"
+    (capture,) = read_path(_write(tmp_path, "v.csv", text.encode()))
+    assert capture.conditions.vdd_v == 1.8
+
+
 def test_a_one_based_index_without_a_start_time(tmp_path):
     text = "Sample Interval,1e-6\nindex,vdd,vref\n1,0,0\n2,1.8,1.2\n3,1.8,1.2\n"
     (capture,) = read_path(_write(tmp_path, "i.csv", text.encode()))
