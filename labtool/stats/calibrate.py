@@ -9,8 +9,8 @@ Method (simulated likelihood with common random numbers):
   delays under a normal with the simulated delays' mean and standard deviation. Stuck counts:
   binomial with the simulated stuck probability smoothed to (k + ½)/(N + 1), so that a finite
   Monte Carlo never claims a probability of exactly 0 or 1.
-- Search in ln θ (parameters are positive scales): coordinate line searches by successive parabolic
-  interpolation after a factor-3 bracket.
+- Search in ln θ (parameters are positive scales): coordinate line searches, a factor-3 bracket and
+  then bounded Brent (scipy.optimize.minimize_scalar) inside it.
 - Intervals: one parameter, profile likelihood (where the log-likelihood has fallen by
   χ²₁(0.95)/2 = 1.921, found by two secant steps on √drop); several, Wald intervals in ln θ from a
   central-difference Hessian. Both are stated in the result. The simulated parts are a finite sample
@@ -35,6 +35,7 @@ from typing import Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 from scipy import stats
+from scipy.optimize import minimize_scalar
 
 from labtool.errors import UsageError
 from labtool.execute import Scheduler
@@ -193,50 +194,37 @@ def _vertex(x: np.ndarray, f: np.ndarray) -> tuple[float, float]:
 
 
 def _line_search(obj: _Objective, u: np.ndarray, i: int, u0: np.ndarray) -> tuple[np.ndarray, float]:
-    """Minimise along coordinate i: factor-3 bracket, then successive parabolic interpolation.
-    Returns the best point and the local curvature of −ln L along i."""
+    """Minimise along coordinate i: factor-3 bracket within the search limits, then bounded Brent
+    (``scipy.optimize.minimize_scalar``) inside it. Returns the best point and the local curvature
+    of −ln L along i (from the three evaluated points around the best)."""
+    pts: dict[float, float] = {}
+
     def at(x):
         v = u.copy()
         v[i] = x
-        return obj(v)
+        pts[float(x)] = obj(v)
+        return pts[float(x)]
 
     lo_lim, hi_lim = u0[i] - _SEARCH_LIMIT, u0[i] + _SEARCH_LIMIT
-    pts = {u[i]: at(u[i])}
-    for x in (u[i] - _BRACKET, u[i] + _BRACKET):
-        pts[x] = at(x)
+    for x in (u[i], u[i] - _BRACKET, u[i] + _BRACKET):
+        at(x)
     while True:
         xs = sorted(pts)
         best = min(pts, key=pts.get)
         if best == xs[0] and best - _BRACKET >= lo_lim:
-            pts[best - _BRACKET] = at(best - _BRACKET)
+            at(best - _BRACKET)
         elif best == xs[-1] and best + _BRACKET <= hi_lim:
-            pts[best + _BRACKET] = at(best + _BRACKET)
+            at(best + _BRACKET)
         else:
             break
-    curvature = 0.0
-    for _ in range(10):
-        xs = sorted(pts)
-        best = min(pts, key=pts.get)
-        k = xs.index(best)
-        if k == 0 or k == len(xs) - 1:
-            break  # at the search limit
-        trio = np.array(xs[k - 1:k + 2])
-        left, right = best - trio[0], trio[2] - best
-        if max(left, right) > 3 * min(left, right) and min(left, right) > _TOL / 2:
-            # a far neighbour makes the parabola global: mirror the near one first
-            v = best - right if left > right else best + left
-            pts[v] = at(v)
-            continue
-        v, curvature = _vertex(trio, np.array([pts[x] for x in trio]))
-        if not math.isfinite(v):
-            break
-        v = float(np.clip(v, trio[0], trio[2]))
-        if abs(v - best) < _TOL:
-            break
-        if min(abs(v - x) for x in xs) < _TOL / 2:  # parabola stuck next to a neighbour: bisect instead
-            v = 0.5 * (best + (trio[0] if v < best else trio[2]))
-        pts[v] = at(v)
+    k = xs.index(best)
+    if 0 < k < len(xs) - 1:  # bracketed (at a search limit the limit is the answer)
+        minimize_scalar(at, bounds=(xs[k - 1], xs[k + 1]), method="bounded", options={"xatol": _TOL})
+    xs = sorted(pts)
     best = min(pts, key=pts.get)
+    k = xs.index(best)
+    curvature = (_vertex(np.array(xs[k - 1:k + 2]), np.array([pts[x] for x in xs[k - 1:k + 2]]))[1]
+                 if 0 < k < len(xs) - 1 else 0.0)
     out = u.copy()
     out[i] = best
     return out, curvature

@@ -62,8 +62,9 @@ def test_modified_z_scores_follow_the_handbook_formula():
 
 
 def test_grubbs_statistic_matches_the_handbook_example():
-    # e-Handbook §1.3.5.17.1: G = 2.468765 (GUIDE §3, read in a stored text); the two-sided
-    # critical value at alpha 0.05 for n = 8 is 2.1266 (from memory of the same page).
+    # e-Handbook §1.3.5.17.1: G = 2.468765 (GUIDE §3, read in a stored text). The handbook's test is
+    # two-sided: G_crit = (N−1)/√N·√(t²/(N−2+t²)) with t the upper α/(2N) point of t(N−2) (§1.3.5.17);
+    # α 0.05, N = 8 gives 2.1266 (computed with scipy.stats.t.isf; the one-sided α/N form gives 2.0317).
     res = grubbs(GRUBBS_DATA)
     assert res.statistic == pytest.approx(2.468765, abs=1e-6)
     assert res.index == 7 and res.outlier
