@@ -126,3 +126,28 @@ def test_a_version_1_catalog_is_migrated_with_its_measurements(tmp_path):
     with sqlite3.connect(root / CATALOG_NAME) as conn:
         assert conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone() == ("2",)
         assert conn.execute("SELECT row_index FROM measurements").fetchall() == [(0,)]
+
+
+def test_roles_by_shape_a_steady_supply_an_enable_edge_and_an_output(tmp_path):
+    # generic column names: the flat channel at the top level is the supply, the fast two-level edge the
+    # enable, the channel that follows the output (scope noise of 1 mV on every channel)
+    rng = np.random.default_rng(5)
+    enable = np.interp(T, [30e-6, 30.04e-6], [0.0, VDD])
+    output = np.where(T < 32e-6, 0.0, first_order_return(T, 32e-6, 0.0))
+    noisy = {name: v + rng.normal(0.0, 1e-3, T.size) for name, v in
+             (("CH1", output), ("CH2", np.full_like(T, VDD)), ("CH3", enable))}
+    (cap,) = read_path(write_csv(tmp_path / "scope.csv", {"Time": T, **noisy}))
+    assert {c.name: (c.role, c.role_source) for c in cap.channels} == {
+        "CH1": ("output", "shape"), "CH2": ("supply", "shape"), "CH3": ("enable", "shape")}
+    (r,) = measure_capture_rows(cap)
+    assert r.delay_ref == "enable" and r.t_enable_s == pytest.approx(30.02e-6, abs=2e-9)
+
+
+def test_roles_by_shape_of_a_brown_out_record(tmp_path):
+    path = dip_export(tmp_path)
+    text = open(path).read().replace("Time,VDD,EN,VREF", "Time,CH1,CH2,CH3", 1)
+    (tmp_path / "generic_dip.csv").write_text(text)
+    (cap,) = read_path(str(tmp_path / "generic_dip.csv"))
+    assert {c.name: c.role for c in cap.channels}["CH1"] == "supply"
+    assert {c.name: c.role for c in cap.channels}["CH3"] == "output"
+    assert [r.verdict for r in measure_capture_rows(cap)] == ["recovered", "no_recovery"]
