@@ -151,3 +151,16 @@ def test_roles_by_shape_of_a_brown_out_record(tmp_path):
     assert {c.name: c.role for c in cap.channels}["CH1"] == "supply"
     assert {c.name: c.role for c in cap.channels}["CH3"] == "output"
     assert [r.verdict for r in measure_capture_rows(cap)] == ["recovered", "no_recovery"]
+
+
+def test_lot_statistics_count_startups_only(tmp_path, capsys):
+    # the dip capture's rows (one recovered, one no_recovery) are not startups: the lot counts the
+    # enable-edge capture alone
+    root = tmp_path / "camp"
+    assert main(["ingest", dip_export(tmp_path), enable_export(tmp_path), "--into", str(root)]) == 0
+    assert main(["measure", str(root), "--scheduler", "local:1"]) == 0
+    capsys.readouterr()
+    assert main(["lot", str(root), "--json"]) == 0
+    rows = [json.loads(line) for line in capsys.readouterr().out.splitlines()]
+    (group,) = [r for r in rows if r["row"] == "group"]
+    assert group["n_captures"] == 1 and group["n_started"] == 1 and group["n_stuck_at_zero"] == 0
