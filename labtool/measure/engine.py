@@ -20,7 +20,7 @@ from labtool.measure.levels import segment_level
 from labtool.measure.limits import Limits
 from labtool.measure.startup import (TAIL_FRACTION, StartupMetrics, edge_instant, measure_startup, signal_levels,
                                      supply_metrics)
-from labtool.measure.supply_events import DipMetrics, dropout_supply_v, measure_dips, supply_kind
+from labtool.measure.supply_events import DipMetrics, dip_windows, dropout_supply_v, measure_dips, supply_kind
 from labtool.measure.verdict import POWER_DOWN, decide
 
 MIN_SAMPLES = 32
@@ -166,10 +166,14 @@ def measure_outputs(t_s, supply_v, outputs, limits: Limits = Limits(), *, fit: b
     """Measure many output records against one shared supply record (the samples of a Monte Carlo
     condition): the supply's levels and reference instant are derived once. Each result equals
     ``measure_arrays(t_s, supply_v, output)``; ``fit=False`` skips the step-model fit (ring_hz and
-    damping are then None). An output with non-finite samples is measured on its own."""
+    damping are then None). An output with non-finite samples is measured on its own. A supply that
+    dips or powers down: each output's first row of :func:`measure_rows` (its first dip)."""
     t, s, _, _ = _checked(t_s, supply_v, supply_v)
     shared = t.size == np.size(t_s)  # no supply or time sample was dropped
     part = supply_metrics(t, s, limits)
+    kind = supply_kind(part.levels, limits)
+    if kind == "power_down" or (kind == "steady" and dip_windows(t, s, part.levels)):
+        return [measure_arrays(t_s, supply_v, output, limits) for output in outputs]
     results = []
     for output in outputs:
         o = np.asarray(output, dtype=np.float64)

@@ -166,3 +166,16 @@ def test_a_ramp_capture_has_the_new_keys_null():
     for key in ("t_enable_s", "dip_index", "t_dip_s", "dip_depth_v", "dip_duration_s", "dip_min_v",
                 "vout_min_during_dip_v", "recovery_s", "vsupply_dropout_v"):
         assert d[key] is None
+
+
+def test_many_outputs_against_one_dipping_supply_as_each_alone():
+    # the Monte Carlo entry: one shared supply record, many outputs; equal to measuring each alone
+    from labtool.measure import measure_outputs
+
+    supply = trapezoid_dip(T, **DIP)
+    t_ret = return_instant(**DIP)
+    recovers = np.where(T < DIP["start"], VREF, np.where(T < t_ret, 0.0, first_order_return(T, t_ret, 0.0)))
+    stays_down = np.where(T < DIP["start"] + 1e-6, VREF, 0.0)
+    results = measure_outputs(T, supply, [recovers, stays_down], fit=False)
+    assert [r.verdict for r in results] == ["recovered", "no_recovery"]
+    assert results == [measure_arrays(T, supply, o) for o in (recovers, stays_down)]
