@@ -5,9 +5,10 @@ ignoring its unit and channel prefixes such as ``CH1``: ``vdd``, ``CH1 VDD``, ``
 Then columns with generic names (``CH1``, ``Channel A``, ``Ampl``, ``2``), or a file's only channel,
 get the roles still open from their waveforms: a current (in A) is the supply current; of the voltage
 channels the supply is the one that ramps first to the higher settled level (needs a second channel,
-or an output named already); once there is a supply, a two-level channel with a fast edge is the
-enable; the output is the channel that follows (the first that moves, else the first: a stuck output
-is flat). A lone generic channel is the output: scopes that trigger on the supply often keep only it.
+or an output named already), or, when only an enable edge moves at that level, the flat channel at it
+(a supply already steady when the enable rises); once there is a supply, a two-level channel with a
+fast rising edge is the enable (an active-low one is picked with ``--enable``); the output is the
+channel that follows (the first that moves, else the first: a stuck output is flat). A lone generic channel is the output: scopes that trigger on the supply often keep only it.
 
 A role two columns could fill by name, no supply and no output at all, or an unnamed voltage column
 left over with no output found, is an InputError that lists the columns found.
@@ -156,14 +157,18 @@ def _by_shape(candidates: list[int], shape_of: Callable[[int], ChannelShape], un
         top = max(shapes[k].final_v for k in moving)
         near = [k for k in moving if shapes[k].final_v >= top - SAME_LEVEL * abs(top)]
         ramps = [k for k in near if not shapes[k].two_level_edge]
+        steady = [k for k in volts if not shapes[k].moves and shapes[k].final_v >= top - SAME_LEVEL * abs(top)]
         if len(volts) >= 3 and ramps:  # with an enable among them, the supply is the one that ramps
             near = ramps
+        elif steady and not ramps and len(volts) >= 3:  # only edges move: the supply is the flat one at the top
+            near = steady
         supply = min(near, key=onset)
         found[supply] = "supply"
         volts.remove(supply)
         has_supply = True
     if "enable" not in filled and has_supply and len(volts) >= (2 if need_output else 1):
-        edges = [k for k in volts if shapes[k].two_level_edge]
+        # rising only: an output that collapses (a failed recovery) is two-level with a fast edge too
+        edges = [k for k in volts if shapes[k].two_level_edge and shapes[k].final_v > shapes[k].initial_v]
         if edges:
             enable = min(edges, key=onset)
             found[enable] = "enable"

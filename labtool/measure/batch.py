@@ -1,9 +1,9 @@
 """Measure every current capture of a campaign and save the rows in its catalog.
 
-Workers get small catalog records, read their own waveform from the store and send back one row
-each, so no process ever holds more than one waveform per worker. The parent saves all rows in one
-transaction (replacing earlier results under the same limits). A capture that cannot be measured is
-listed in the report; the others are still saved.
+Workers get small catalog records, read their own waveform from the store and send back the rows of
+that capture (one, or one per supply dip), so no process ever holds more than one waveform per
+worker. The parent saves all rows in one transaction (replacing earlier results under the same
+limits). A capture that cannot be measured is listed in the report; the others are still saved.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ from functools import partial
 
 from labtool.errors import LabtoolError, MeasurementError
 from labtool.execute import Scheduler, run_batch
-from labtool.measure.engine import measure_capture
+from labtool.measure.engine import measure_capture_rows
 from labtool.measure.limits import Limits
 from labtool.store import Campaign, load_capture_record
 
@@ -28,20 +28,21 @@ class MeasureReport:
 
     @property
     def measured(self) -> int:
-        return len(self.rows)
+        """Captures measured (a capture with several dips has several rows)."""
+        return len({row["capture_id"] for row in self.rows})
 
 
-def result_row(capture, limits: Limits) -> dict:
-    """One measurement row: ``{"capture_id", "file", **result.to_json_dict()}``."""
-    result = measure_capture(capture, limits)
-    return {"capture_id": capture.capture_id, "file": capture.provenance.source_path, **result.to_json_dict()}
+def result_rows(capture, limits: Limits) -> list[dict]:
+    """The capture's measurement rows: ``{"capture_id", "file", **result.to_json_dict()}`` each."""
+    return [{"capture_id": capture.capture_id, "file": capture.provenance.source_path, **result.to_json_dict()}
+            for result in measure_capture_rows(capture, limits)]
 
 
-def measure_record(root: str, limits: Limits, record: dict) -> dict:
+def measure_record(root: str, limits: Limits, record: dict) -> list[dict]:
     """Worker: load one capture from the store by its catalog record and measure it."""
     capture = load_capture_record(root, record)
     try:
-        return result_row(capture, limits)
+        return result_rows(capture, limits)
     except LabtoolError:
         raise
     except Exception as exc:  # a defect on one capture must not end the batch; it is reported with the capture
@@ -56,7 +57,7 @@ def measure_campaign(campaign: Campaign, limits: Limits = Limits(), scheduler: S
     report = MeasureReport(limits_key=limits.key())
     for outcome in run_batch(work, records, scheduler, what="measure", unit="capture"):
         if outcome.ok:
-            report.rows.append(outcome.value)
+            report.rows.extend(outcome.value)
         else:
             report.failed.append((outcome.item["capture_id"], outcome.error))
     if report.rows:

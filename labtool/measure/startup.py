@@ -82,14 +82,27 @@ class StartupMetrics:
     window: tuple[int, int] | None  # sample range of the transition window (for the fit)
 
 
-def sustained_max(v: np.ndarray, dwell: int = MIN_DWELL) -> float:
-    """The highest level the signal holds for ``dwell`` consecutive samples (a spike is not a level)."""
+def held_levels(v: np.ndarray, dwell: int = MIN_DWELL) -> np.ndarray:
+    """For each start k, the lowest of v[k:k+dwell]: the level the signal holds over those samples
+    (a record shorter than ``dwell``: its samples)."""
     if v.size < dwell:
-        return float(v.max())
+        return np.asarray(v, dtype=np.float64)
     held = v[: v.size - dwell + 1].copy()
     for k in range(1, dwell):
         np.minimum(held, v[k: v.size - dwell + 1 + k], out=held)
-    return float(held.max())
+    return held
+
+
+def sustained_max(v: np.ndarray, dwell: int = MIN_DWELL) -> float:
+    """The highest level the signal holds for ``dwell`` consecutive samples (a spike is not a level)."""
+    return float(held_levels(v, dwell).max())
+
+
+def sustained_min(v: np.ndarray, dwell: int = MIN_DWELL) -> tuple[float, int]:
+    """(lowest level the signal holds for ``dwell`` consecutive samples, index of its first sample)."""
+    held = held_levels(-v, dwell)
+    k = int(np.argmax(held))
+    return -float(held[k]), k
 
 
 def _head(v: np.ndarray, noise_v: float, step_v: float) -> np.ndarray:
@@ -157,7 +170,9 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
 
     Without a supply record (``supply`` None) the delay and settling count from ``t_ref_s`` (the trigger
     instant, a given supply-valid instant or the enable edge), reported as ``t_supply_s``; the supply
-    fields are None. ``supply_part``: :func:`supply_metrics` of this supply record, when already known.
+    fields are None. With a supply record they count from ``t_ref_s`` when it is given (the enable edge of
+    a capture whose supply is steady), else from the supply's reference crossing.
+    ``supply_part``: :func:`supply_metrics` of this supply record, when already known.
     """
     out = signal_levels(output)
     if supply is None:
@@ -166,6 +181,8 @@ def measure_startup(t: np.ndarray, supply: np.ndarray | None, output: np.ndarray
     else:
         sp = supply_metrics(t, supply, limits) if supply_part is None else supply_part
         sup, t_supply, supply_ref_v, ramp = sp.levels, sp.t_supply_s, sp.ref_v, sp.ramp_v_per_s
+        if t_ref_s is not None:
+            t_supply = t_ref_s
     zero_v = _zero_threshold(out, sup.final_v if sup is not None else 0.0, limits)
     peak_v = sustained_max(output)
     left_zero = peak_v > zero_v

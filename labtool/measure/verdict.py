@@ -7,6 +7,11 @@ from labtool.measure.startup import StartupMetrics
 
 VERDICTS = ("no_supply", "stuck_at_zero", "recollapse", "incomplete", "wrong_level", "slow_start", "ringing",
             "started")
+# A dip row (issue 19): the output came back into its band, stayed below it, or neither; a dip row whose
+# output was already in the zero state before the dip is "stuck_at_zero" (there was nothing to recover).
+DIP_VERDICTS = ("stuck_at_zero", "no_recovery", "incomplete", "recovered")
+# A power-down row carries the dropout supply voltage and no judgement.
+POWER_DOWN = "power_down"
 
 
 def decide(m: StartupMetrics, limits: Limits) -> tuple[str, dict]:

@@ -9,7 +9,7 @@ import pandas as pd
 
 from labtool.display import format_cell
 from labtool.errors import UsageError
-from labtool.stats.table import plain
+from labtool.stats.table import plain, startup_rows
 
 
 def load_measurements(campaign_path: str) -> pd.DataFrame:
@@ -18,14 +18,18 @@ def load_measurements(campaign_path: str) -> pd.DataFrame:
 
 
 def load_measured(campaign_path: str):
-    """(measurement table, the :class:`~labtool.measure.Limits` it was measured with) of a campaign
-    directory: what the model must be run with to be compared with it."""
+    """(measurement table of the startups, the :class:`~labtool.measure.Limits` it was measured with) of
+    a campaign directory: what the model must be run with to be compared with it. Supply-dip and
+    power-down rows are left out (:func:`labtool.stats.table.startup_rows`)."""
     from labtool.store import Campaign
 
     with Campaign.open(campaign_path) as camp:
-        table = camp.measurements()
-        if table.empty:
+        measured = camp.measurements()
+        if measured.empty:
             raise UsageError(f"{campaign_path}: no measurements yet; run `labtool measure {campaign_path}` first")
+        table = startup_rows(measured)
+        if table.empty:
+            raise UsageError(f"{campaign_path}: no startup measurements (only supply-dip or power-down captures)")
         return table, measured_limits(camp, table)
 
 

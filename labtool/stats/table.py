@@ -16,6 +16,8 @@ STUCK = "stuck_at_zero"
 # The output reached a level (maybe late, ringing or wrong) versus never held one.
 CAME_UP = frozenset({"started", "slow_start", "ringing", "wrong_level"})
 FAILED_TO_HOLD = frozenset({"stuck_at_zero", "recollapse"})
+# Rows that are startups (labtool.measure CAPTURE_KINDS); dip and power-down rows are other experiments.
+STARTUP_KINDS = ("ramp", "enable")
 # Conditions that define one bench set-up of a part; power cycles at one set-up are repeats.
 CELL_KEYS = ("ramp_s", "temperature_c", "vdd_v")
 
@@ -86,3 +88,13 @@ def leading(frame: pd.DataFrame, first: Sequence[str]) -> pd.DataFrame:
     """``frame`` with the columns ``first`` (those it has) in front, the others after in their order."""
     lead = [c for c in dict.fromkeys(first) if c in frame.columns]
     return frame[[*lead, *(c for c in frame.columns if c not in lead)]]
+
+
+def startup_rows(df: pd.DataFrame) -> pd.DataFrame:
+    """The rows of a measurement table that are startups (ramp or enable edge): a supply-dip row's
+    ``stuck_at_zero`` or a power-down row is not a failed start. Rows measured before capture kinds
+    existed (no ``capture_kind``) are startups."""
+    if "capture_kind" not in df.columns:
+        return df
+    kind = df["capture_kind"]
+    return df[kind.isna() | kind.isin(STARTUP_KINDS)]

@@ -2,7 +2,8 @@
 
 Layout of a campaign directory::
 
-    catalog.sqlite              captures, conditions, provenance, measurements
+    catalog.sqlite              captures, conditions, provenance, measurements (one row per capture and
+                                limits; a capture with supply dips has one row per dip: ``row_index``)
     waveforms/<lot>/<id>.parquet one file per capture, grouped by lot so workers read what they need
     tmp/                        files being written; renamed into place when complete
 
@@ -30,9 +31,20 @@ from labtool.capture import CONDITION_TYPES, Capture, Conditions, Provenance
 from labtool.errors import StoreError
 from labtool.store.waveforms import waveform_from_parquet, waveform_to_parquet
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # 2: measurements keyed by (capture, limits, row_index)
 CATALOG_NAME = "catalog.sqlite"
 
+_MEASUREMENT_COLUMNS = "capture_id, limits_key, row_index, limits_json, measured_at, verdict, result_json"
+_MEASUREMENTS = """CREATE TABLE IF NOT EXISTS measurements (
+    capture_id TEXT NOT NULL REFERENCES captures (capture_id),
+    limits_key TEXT NOT NULL,
+    row_index INTEGER NOT NULL,
+    limits_json TEXT NOT NULL,
+    measured_at TEXT NOT NULL,
+    verdict TEXT NOT NULL,
+    result_json TEXT NOT NULL,
+    PRIMARY KEY (capture_id, limits_key, row_index)
+)"""
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS captures (
@@ -57,17 +69,20 @@ CREATE TABLE IF NOT EXISTS captures (
 );
 CREATE INDEX IF NOT EXISTS captures_source ON captures (source_path, locator, version);
 CREATE INDEX IF NOT EXISTS captures_lot ON captures (lot, part);
-CREATE TABLE IF NOT EXISTS measurements (
-    capture_id TEXT NOT NULL REFERENCES captures (capture_id),
-    limits_key TEXT NOT NULL,
-    limits_json TEXT NOT NULL,
-    measured_at TEXT NOT NULL,
-    verdict TEXT NOT NULL,
-    result_json TEXT NOT NULL,
-    PRIMARY KEY (capture_id, limits_key)
-);
+{measurements};
 CREATE INDEX IF NOT EXISTS measurements_limits ON measurements (limits_key);
-"""
+""".format(measurements=_MEASUREMENTS)
+# Version 1 kept one measurement row per (capture, limits); its rows become row_index 0.
+_MIGRATE_FROM_1 = """
+DROP INDEX IF EXISTS measurements_limits;
+ALTER TABLE measurements RENAME TO measurements_v1;
+{measurements};
+INSERT INTO measurements ({columns})
+    SELECT capture_id, limits_key, 0, limits_json, measured_at, verdict, result_json FROM measurements_v1;
+DROP TABLE measurements_v1;
+CREATE INDEX measurements_limits ON measurements (limits_key);
+UPDATE meta SET value = '2' WHERE key = 'schema_version'
+""".format(measurements=_MEASUREMENTS, columns=_MEASUREMENT_COLUMNS)
 
 CONDITION_COLUMNS = tuple(CONDITION_TYPES)
 REVISION_KEY = "conditions_revision"  # metadata of a source stored again under new conditions
@@ -120,6 +135,9 @@ class Campaign:
                 row = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
                 if row is None:
                     conn.execute("INSERT INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+                elif int(row[0]) == 1:
+                    for stmt in filter(None, (s.strip() for s in _MIGRATE_FROM_1.split(";"))):
+                        conn.execute(stmt)
                 elif int(row[0]) != SCHEMA_VERSION:
                     raise StoreError(f"{root}: schema version {row[0]}, this labtool reads {SCHEMA_VERSION}")
         except sqlite3.DatabaseError as exc:
@@ -287,13 +305,24 @@ class Campaign:
 
     # -- measurements ---------------------------------------------------------------------
     def save_measurements(self, rows: Iterable[dict], *, limits_key: str, limits_json: str) -> int:
-        """Replace the results for these limits of the captures in ``rows`` (each has capture_id, verdict)."""
+        """Replace the results for these limits of the captures in ``rows`` (each has capture_id, verdict).
+
+        A capture's rows are stored in the order given (``row_index`` 0, 1, …: one per supply dip); all
+        of its earlier rows under these limits go, so a capture measured again with fewer dips keeps none
+        of the old ones.
+        """
         now = _now()
-        records = [(r["capture_id"], limits_key, limits_json, now, r["verdict"], json.dumps(r, default=_json_default))
-                   for r in rows]
+        records, seen = [], {}
+        for r in rows:
+            index = seen[r["capture_id"]] = seen.get(r["capture_id"], -1) + 1
+            records.append((r["capture_id"], limits_key, index, limits_json, now, r["verdict"],
+                            json.dumps(r, default=_json_default)))
         try:
             with _transaction(self._conn):
-                self._conn.executemany("INSERT OR REPLACE INTO measurements VALUES (?,?,?,?,?,?)", records)
+                self._conn.executemany("DELETE FROM measurements WHERE capture_id = ? AND limits_key = ?",
+                                       [(cid, limits_key) for cid in seen])
+                self._conn.executemany(f"INSERT INTO measurements ({_MEASUREMENT_COLUMNS}) VALUES (?,?,?,?,?,?,?)",
+                                       records)
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"{self.root}: cannot save measurements: {exc}") from None
         return len(records)
@@ -301,6 +330,7 @@ class Campaign:
     def measurements(self, *, limits_key: str | None = None) -> pd.DataFrame:
         """Measurement rows joined with the capture's conditions, for the current version of each
         (source path, locator) only: a changed file's earlier versions never count, measured or not.
+        One row per capture, or per supply dip (``dip_index``) of a capture with dips.
         Under ``limits_key``, or the limits of the newest measurement of a current capture."""
         if limits_key is None:
             row = self._conn.execute(
@@ -312,14 +342,14 @@ class Campaign:
         df = pd.read_sql_query(
             "SELECT m.result_json, m.limits_key, m.measured_at, c.* FROM measurements m "
             f"JOIN captures c USING (capture_id) WHERE m.limits_key = ? AND {_CURRENT} "
-            "ORDER BY c.source_path, c.locator",
+            "ORDER BY c.source_path, c.locator, m.row_index",
             self._conn, params=(limits_key,))
         if df.empty:
             return df
-        results = pd.DataFrame.from_records([json.loads(s) for s in df.pop("result_json")])
-        results = results.drop(columns=[c for c in results.columns if c in df.columns and c != "capture_id"])
-        merged = df.merge(results, on="capture_id", how="left", suffixes=("", "_m"))
-        return _expand_tags(merged)
+        # one result per catalog row, in the same order (a capture with dips has several rows)
+        results = pd.DataFrame.from_records([json.loads(s) for s in df.pop("result_json")], index=df.index)
+        results = results.drop(columns=[c for c in results.columns if c in df.columns])
+        return _expand_tags(pd.concat([df, results], axis=1))
 
     def limits(self, limits_key: str) -> dict:
         """The limits a set of measurements was made with ({} when none are stored under that key)."""

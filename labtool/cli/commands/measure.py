@@ -1,4 +1,4 @@
-"""``labtool measure FILE... | CAMPAIGN``: startup metrics and verdicts per capture.
+"""``labtool measure FILE... | CAMPAIGN``: startup metrics and verdicts per capture (per dip for supply dips).
 
 A path that is a campaign directory (it holds ``catalog.sqlite``) is measured in place: every current
 capture, results saved in its catalog under the limits' key (replacing earlier results for the same
@@ -17,7 +17,7 @@ from labtool.errors import LabtoolError, MeasurementError, UsageError
 from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
 from labtool.ingest import IngestOptions, read_path
 from labtool.measure import Limits
-from labtool.measure.batch import measure_campaign, result_row
+from labtool.measure.batch import measure_campaign, result_rows
 from labtool.stats.sources import text_table
 from labtool.store import Campaign
 from labtool.store.campaign import CATALOG_NAME
@@ -28,6 +28,9 @@ _LIMIT_FLAGS = {"supply_ref": "supply_ref", "supply_min": "supply_min_v", "expec
 # Columns of the readable table; each is shown in the unit its name says (labtool.display).
 _TABLE = ("file", "capture_id", "verdict", "t_supply_s", "delay_s", "rise_s", "settle_s", "overshoot_pct", "ring_hz",
           "damping", "vout_final_v", "vsupply_final_v", "ramp_v_per_s", "supply_at_start_v", "vsupply_at_valid_v")
+# Shown only when some row has them: enable edges, supply dips, power-downs.
+_EVENT_TABLE = ("t_enable_s", "dip_index", "dip_depth_v", "dip_duration_s", "dip_min_v", "vout_min_during_dip_v",
+                "recovery_s", "vsupply_dropout_v")
 
 
 def register(sub) -> None:
@@ -43,7 +46,8 @@ def register(sub) -> None:
     p.add_argument("--max-delay", metavar="S", help="slow_start above this delay (500e-6 or 500us)")
     p.add_argument("--max-overshoot", metavar="PCT", help="ringing above this overshoot in %% (default 10)")
     p.add_argument("--limits", metavar="F", help="TOML limits file; flags override it")
-    p.add_argument("--json", action="store_true", help="one JSON object per capture per line")
+    p.add_argument("--json", action="store_true",
+                   help="one JSON object per line: per capture, or per dip of a capture with supply dips")
     add_scheduler_option(p)
     p.set_defaults(handler=run)
 
@@ -70,7 +74,7 @@ def measure_file(options, limits: Limits, path: str) -> list[tuple[str, dict | s
     out = []
     for capture in read_path(path, options):
         try:
-            out.append(("ok", {**result_row(capture, limits), "file": path}))
+            out.extend(("ok", {**row, "file": path}) for row in result_rows(capture, limits))
         except MeasurementError as exc:
             out.append(("error", str(exc)))
     return out
@@ -121,7 +125,7 @@ def run(args) -> int:
             failures += 1
             print(f"labtool measure: {exc}", file=sys.stderr)
     if table:
-        print(text_table(table, _TABLE))
+        print(text_table(table, _TABLE + tuple(c for c in _EVENT_TABLE if any(r.get(c) is not None for r in table))))
     if failures:
         print(f"labtool measure: {failures} failure(s)", file=sys.stderr)
     return 1 if failures else 0
