@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 
-from labtool._api.results import compare
 from labtool.display import format_pvalue
 from labtool.stats.sources import add_monte_carlo_options, text_table
 from labtool.stats.table import parse_keys
@@ -36,6 +35,8 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
+    from labtool._api.results import compare
+
     by = parse_keys(args.by)
     result = compare(args.campaign, model=args.model, predictions=args.predictions, by=by, samples=args.samples,
                      seed=args.seed, scheduler=args.scheduler or "local")  # the CLI uses every core by default

@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 
-from labtool._api.results import lot
 from labtool.measure.verdict import VERDICTS
 from labtool.stats.sources import text_table
 from labtool.stats.table import parse_keys
@@ -45,6 +44,8 @@ def readable_setup(rec: dict) -> dict:
 
 
 def run(args) -> int:
+    from labtool._api.results import lot
+
     by = parse_keys(args.by)
     spec = None if args.spec_max_delay is None else parse_quantity(args.spec_max_delay, "s", what="--spec-max-delay")
     result = lot(args.campaign, by=by, spec_max_delay_s=spec)
