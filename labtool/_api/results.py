@@ -90,19 +90,26 @@ def _scheduler(scheduler: str | None):
 
 # -- lot statistics -----------------------------------------------------------------------------------
 @dataclass(frozen=True)
-class LotResult:
-    """Lot statistics: per group of ``by`` a :class:`~labtool.stats.lot.LotStats` (yield figures over
-    its parts and starts) with one set-up summary per ramp × temperature × supply (delay figures)."""
+class _GroupedResult:
+    """Per group of ``by`` one result object whose ``json_rows()`` are the command's ``--json`` lines."""
 
     by: tuple[str, ...]
-    groups: tuple[LotStats, ...] = field(repr=False)
+    groups: tuple = field(repr=False)
 
     def rows(self) -> list[dict]:
-        """The ``labtool lot --json`` objects: per group its group row, then its set-up rows."""
-        return [plain_record(rec) for s in self.groups for rec in s.json_rows()]
+        """The command's ``--json`` objects: per group its group row, then its set-up rows."""
+        return [plain_record(rec) for g in self.groups for rec in g.json_rows()]
 
     def to_dict(self) -> dict:
         return {"by": list(self.by), "rows": self.rows()}
+
+
+@dataclass(frozen=True)
+class LotResult(_GroupedResult):
+    """Lot statistics (``labtool lot``): per group of ``by`` a :class:`~labtool.stats.lot.LotStats` (yield
+    figures over its parts and starts) with one set-up summary per ramp × temperature × supply (delays)."""
+
+    groups: tuple[LotStats, ...] = field(repr=False)
 
     def to_frame(self) -> pd.DataFrame:
         """Group and set-up rows (column ``row``), the delay fit as ``delay_fit_*`` columns."""
@@ -122,20 +129,13 @@ def lot(source: Source, by: Keys = "lot", *, spec_max_delay_s: float | str | Non
 
 # -- comparison with predictions ----------------------------------------------------------------------
 @dataclass(frozen=True)
-class CompareResult:
-    """Measured against predicted, per group of ``by``: a :class:`~labtool.stats.compare.Comparison`
-    (the stuck-at-zero test over parts, the findings) with one row per matched set-up (the delays)."""
+class CompareResult(_GroupedResult):
+    """Measured against predicted (``labtool compare``), per group of ``by``: a
+    :class:`~labtool.stats.compare.Comparison` (the stuck-at-zero test over parts, the findings) with one
+    row per matched set-up (the delays); ``predictions``: what was compared against."""
 
-    by: tuple[str, ...]
     groups: tuple[Comparison, ...] = field(repr=False)
-    predictions: pd.DataFrame = field(repr=False, compare=False)  # what was compared against
-
-    def rows(self) -> list[dict]:
-        """The ``labtool compare --json`` objects: per group its group row, then its set-up rows."""
-        return [plain_record(rec) for c in self.groups for rec in c.json_rows()]
-
-    def to_dict(self) -> dict:
-        return {"by": list(self.by), "rows": self.rows()}
+    predictions: pd.DataFrame | None = field(default=None, repr=False, compare=False)
 
     def to_frame(self) -> pd.DataFrame:
         return comparison_table(self.groups)
