@@ -25,7 +25,7 @@ import numpy as np
 from benchmarks.bench_measure import _best, _write_csv, synthetic_record
 from benchmarks.handwritten_baseline import measure_file
 from labtool.capture import Conditions
-from labtool.cli.commands.measure import measure_file as measure_one_file
+from labtool.measure.batch import measure_file as measure_one_file
 from labtool.execute import Scheduler, run_batch
 from labtool.ingest import IngestOptions, ingest_paths, read_path
 from labtool.measure import Limits, measure_capture

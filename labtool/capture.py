@@ -221,6 +221,21 @@ class Capture:
     def times(self) -> np.ndarray:
         return self.time.array()
 
+    def to_pandas(self):
+        """The samples as a ``pandas.DataFrame``: index ``time_s`` (seconds), one column per channel (SI
+        values; clipped samples stay as recorded). ``attrs`` holds ``units`` and ``roles`` per channel,
+        the capture's ``capture_id``, ``conditions`` (the fields that are set, tags included) and ``source``."""
+        import pandas as pd
+
+        frame = pd.DataFrame({c.name: np.asarray(c.values, dtype=np.float64) for c in self.channels},
+                             index=pd.Index(self.times(), name="time_s"))
+        conditions = {k: v for k, v in dataclasses.asdict(self.conditions).items() if k != "tags" and v is not None}
+        frame.attrs.update(units={c.name: c.unit for c in self.channels}, roles={c.name: c.role for c in self.channels},
+                           capture_id=self.capture_id, conditions={**conditions, **self.conditions.tags},
+                           source=self.provenance.source_path + (f" [{self.provenance.locator}]"
+                                                                 if self.provenance.locator else ""))
+        return frame
+
 
 def capture_id_for(sha256: str, locator: str = "", revision: int = 0) -> str:
     key = f"{sha256}|{locator}" + (f"|r{revision}" if revision else "")

@@ -10,9 +10,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from functools import partial
+from typing import Iterator, Sequence
 
 from labtool.errors import LabtoolError, MeasurementError
 from labtool.execute import Scheduler, run_batch
+from labtool.ingest import IngestOptions, read_path
 from labtool.measure.engine import measure_capture_rows
 from labtool.measure.limits import Limits
 from labtool.store import Campaign, load_capture_record
@@ -36,6 +38,32 @@ def result_rows(capture, limits: Limits) -> list[dict]:
     """The capture's measurement rows: ``{"capture_id", "file", **result.to_json_dict()}`` each."""
     return [{"capture_id": capture.capture_id, "file": capture.provenance.source_path, **result.to_json_dict()}
             for result in measure_capture_rows(capture, limits)]
+
+
+def measure_file(options: IngestOptions, limits: Limits, path: str) -> list[tuple[str, dict | str]]:
+    """Worker: read one file and measure each of its captures: ("ok", row) or ("error", message).
+    A row is one of :func:`result_rows` with ``file`` the path as given."""
+    out = []
+    for capture in read_path(path, options):
+        try:
+            out.extend(("ok", {**row, "file": path}) for row in result_rows(capture, limits))
+        except MeasurementError as exc:
+            out.append(("error", str(exc)))
+    return out
+
+
+def measure_files(paths: Sequence[str], options: IngestOptions = IngestOptions(), limits: Limits = Limits(),
+                  scheduler: Scheduler | None = None) -> Iterator[tuple[str, dict | str]]:
+    """("ok", row) / ("error", message) for every capture of every file, in input order (files are read
+    and measured in the scheduler's workers; nothing is stored). A file that cannot be read is one error."""
+    if not paths:
+        return
+    work = partial(measure_file, options, limits)
+    for outcome in run_batch(work, paths, scheduler, what="measure", unit="file"):
+        if outcome.ok:
+            yield from outcome.value
+        else:
+            yield "error", outcome.error
 
 
 def measure_record(root: str, limits: Limits, record: dict) -> list[dict]:

@@ -78,6 +78,10 @@ class StartupResult:
         out["fit"] = self.fit.to_json_dict() if self.fit is not None else None
         return out
 
+    def to_dict(self) -> dict:
+        """As :meth:`to_json_dict`: a ``measure --json`` row without ``capture_id`` and ``file``."""
+        return self.to_json_dict()
+
 
 
 

@@ -97,7 +97,7 @@ def render_job(job: _Job) -> Rendered:
         if job.kind == "part":
             resolution = load_resolution(job.root, job.records) if job.root is not None else None
             report = triage(job.triage_rows, job.label, resolution=resolution, model=job.triage_model)
-        drawers = {"overview": _overview_plots, "group": _group_plots, "part": _part_plots}
+        drawers = {"overview": _overview_plots, "group": _group_plots, "part": part_plots}
         drawn = drawers[job.kind](job, report) if job.kind == "part" else drawers[job.kind](job)
     except LabtoolError:
         raise
@@ -133,7 +133,7 @@ def _group_plots(job: _Job):
             "set-up, of the captures whose output came up and stayed; a negative delay: ready before supply "
             "valid. Failures by verdict in the last panel.")]
     for setup, sub_records, n_total in _overlay_sets(job):
-        traces = _load_traces(job.root, sub_records, rows)
+        traces = load_traces(job.root, sub_records, rows)
         if traces:
             what = plots.setup_title(setup)
             out.append((plots.waveform_overlay(traces, title=f"{job.label} · {what}",
@@ -155,10 +155,10 @@ def _group_plots(job: _Job):
     return out
 
 
-def _part_plots(job: _Job, report):
+def part_plots(job: _Job, report):
     """A triage sheet: per ramp time of the part (failing ones first), its traces against the lot's."""
-    part = _load_traces(job.root, job.records, job.rows)
-    lot = _load_traces(job.root, job.baseline_records, job.baseline_rows)
+    part = load_traces(job.root, job.records, job.rows)
+    lot = load_traces(job.root, job.baseline_records, job.baseline_rows)
     ramp_of = {**_ramps_by_id(job.rows), **_ramps_by_id(job.baseline_rows)}
     panels = []
     for ramp in triage_ramps(job.rows):
@@ -215,7 +215,7 @@ def pick_traces(verdicts: pd.Series, limit: int = MAX_TRACES) -> list[str]:
     return failed + started
 
 
-def _load_traces(root: str | None, records: Sequence[dict], rows: pd.DataFrame | None) -> list[Trace]:
+def load_traces(root: str | None, records: Sequence[dict], rows: pd.DataFrame | None) -> list[Trace]:
     from labtool.store import load_capture_record
 
     if root is None or rows is None:
@@ -319,7 +319,7 @@ def write_report(campaign, out_dir, by: Sequence[str] | str = ("lot",), design=N
     return ReportFiles(html=html_path, workbook=workbook, plots=pngs, failed=failed, triage=reports)
 
 
-def _predicted_by_setup(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> dict | None:
+def predicted_by_setup(rows: pd.DataFrame, predictions: pd.DataFrame | None) -> dict | None:
     """The predicted delays at each of the group's set-ups (set-up tuple → counted delays), matched on
     the set-up columns both tables have."""
     if predictions is None:
@@ -375,30 +375,33 @@ def _jobs(table, by, root, camp, predictions, spec, returned, triage_model, supp
         label = group_label(key)
         records = tuple(camp.records(list(rows["capture_id"]))) if camp is not None else ()
         jobs.append(_Job("group", label, slug(label), rows=rows, records=records,
-                         predicted_by_setup=_predicted_by_setup(rows, predictions), **common))
-    labels = part_labels(table)
-    for part in returned:
-        mine = table[labels == part]
-        same_lot = (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False) \
-            if "lot" in table.columns else pd.Series(True, index=table.index)
-        lot = table[(labels != part) & same_lot]
-        baseline = lot[lot["verdict"].isin(CAME_UP)]
-        if "ramp_s" in baseline.columns:  # the lot at the part's ramp times, up to a panel's worth each
-            baseline = baseline[baseline["ramp_s"].isin(triage_ramps(mine))]
-            chosen = [cid for _, at in baseline.groupby("ramp_s")
-                      for cid in pick_traces(at.set_index("capture_id")["verdict"], MAX_TRACES // 3)]
-        else:
-            chosen = pick_traces(baseline.set_index("capture_id")["verdict"])
-        picked = baseline[baseline["capture_id"].isin(chosen)]
-        # a part alone in its lot is triaged against the other lots (at the same set-ups)
-        triage_rows = table[same_lot] if ((labels != part) & same_lot).any() else table
-        jobs.append(_Job("part", part, "part-" + slug(part), rows=mine, triage_rows=triage_rows,
-                         triage_model=triage_model,
-                         records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),
-                         baseline_rows=picked,
-                         baseline_records=tuple(camp.records(list(picked["capture_id"]))) if camp is not None else (),
-                         **common))
+                         predicted_by_setup=predicted_by_setup(rows, predictions), **common))
+    jobs += [part_job(table, part, camp, triage_model, **common) for part in returned]
     return jobs
+
+
+def part_job(table: pd.DataFrame, part: str, camp, triage_model=None, **common) -> _Job:
+    """The triage-sheet job of one part (``LOT/PART``): its rows, and its lot's traces at its ramp times."""
+    labels = part_labels(table)
+    mine = table[labels == part]
+    same_lot = (table["lot"].astype("string") == part.split("/", 1)[0]).fillna(False) \
+        if "lot" in table.columns else pd.Series(True, index=table.index)
+    lot = table[(labels != part) & same_lot]
+    baseline = lot[lot["verdict"].isin(CAME_UP)]
+    if "ramp_s" in baseline.columns:  # the lot at the part's ramp times, up to a panel's worth each
+        baseline = baseline[baseline["ramp_s"].isin(triage_ramps(mine))]
+        chosen = [cid for _, at in baseline.groupby("ramp_s")
+                  for cid in pick_traces(at.set_index("capture_id")["verdict"], MAX_TRACES // 3)]
+    else:
+        chosen = pick_traces(baseline.set_index("capture_id")["verdict"])
+    picked = baseline[baseline["capture_id"].isin(chosen)]
+    # a part alone in its lot is triaged against the other lots (at the same set-ups)
+    triage_rows = table[same_lot] if ((labels != part) & same_lot).any() else table
+    return _Job("part", part, "part-" + slug(part), rows=mine, triage_rows=triage_rows, triage_model=triage_model,
+                records=tuple(camp.records(list(mine["capture_id"]))) if camp is not None else (),
+                baseline_rows=picked,
+                baseline_records=tuple(camp.records(list(picked["capture_id"]))) if camp is not None else (),
+                **common)
 
 
 # -- HTML sections ------------------------------------------------------------------------------

@@ -46,9 +46,13 @@ def measured_limits(campaign, table: pd.DataFrame):
     return Limits(**{k: v for k, v in stored.items() if k in known})
 
 
+def plain_record(record: dict) -> dict:
+    """A result row with JSON-safe values (numpy scalars to Python, NaN to None): a ``--json`` line's object."""
+    return {k: plain(v) if not isinstance(v, (dict, list)) else v for k, v in record.items()}
+
+
 def json_line(record: dict) -> str:
-    return json.dumps({k: plain(v) if not isinstance(v, (dict, list)) else v for k, v in record.items()},
-                      allow_nan=False)
+    return json.dumps(plain_record(record), allow_nan=False)
 
 
 def text_table(records: Iterable[dict], columns: Sequence[str]) -> str:

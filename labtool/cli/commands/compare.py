@@ -7,11 +7,10 @@ test over parts and the findings) then one row per matched set-up (``"row": "set
 
 from __future__ import annotations
 
+import json
+
 from labtool.display import format_pvalue
-from labtool.execute import parse_scheduler
-from labtool.stats.compare import compare
-from labtool.stats.predictions import load_predictions, predictions_from_model
-from labtool.stats.sources import add_monte_carlo_options, json_line, load_measured, text_table
+from labtool.stats.sources import add_monte_carlo_options, text_table
 from labtool.stats.table import parse_keys
 
 GROUP_COLUMNS = ("n_measured", "n_setups", "measured_n_parts", "measured_n_parts_stuck", "predicted_n_parts",
@@ -36,20 +35,15 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    by = parse_keys(args.by)
-    meas, limits = load_measured(args.campaign)
-    if args.model:
-        from labtool.model import load_design
+    from labtool._api.results import compare
 
-        pred = predictions_from_model(load_design(args.model), meas, n=args.samples, seed=args.seed,
-                                      scheduler=parse_scheduler(args.scheduler), limits=limits)
-    else:
-        pred = load_predictions(args.predictions)
-    results = compare(meas, pred, by=by)
+    by = parse_keys(args.by)
+    result = compare(args.campaign, model=args.model, predictions=args.predictions, by=by, samples=args.samples,
+                     seed=args.seed, scheduler=args.scheduler or "local")  # the CLI uses every core by default
+    results = result.groups
     if args.json:
-        for c in results:
-            for rec in c.json_rows():
-                print(json_line(rec))
+        for rec in result.rows():
+            print(json.dumps(rec, allow_nan=False))
         return 0
     print(text_table([c.to_json_dict() for c in results], (*by, *GROUP_COLUMNS)))
     cols = results[0].match_columns if results else ()

@@ -7,9 +7,10 @@ figure means.
 
 from __future__ import annotations
 
+import json
+
 from labtool.measure.verdict import VERDICTS
-from labtool.stats.lot import lot_statistics
-from labtool.stats.sources import json_line, load_measurements, text_table
+from labtool.stats.sources import text_table
 from labtool.stats.table import parse_keys
 from labtool.units import parse_quantity
 
@@ -43,13 +44,15 @@ def readable_setup(rec: dict) -> dict:
 
 
 def run(args) -> int:
+    from labtool._api.results import lot
+
     by = parse_keys(args.by)
     spec = None if args.spec_max_delay is None else parse_quantity(args.spec_max_delay, "s", what="--spec-max-delay")
-    stats = lot_statistics(load_measurements(args.campaign), by=by, spec_max_delay_s=spec)
+    result = lot(args.campaign, by=by, spec_max_delay_s=spec)
+    stats = result.groups
     if args.json:
-        for s in stats:
-            for rec in s.json_rows():
-                print(json_line(rec))
+        for rec in result.rows():
+            print(json.dumps(rec, allow_nan=False))
         return 0
     print(text_table([s.to_json_dict() for s in stats], (*by, *GROUP_COLUMNS)))
     print("\nper set-up (delays of the captures that came up and stayed):")

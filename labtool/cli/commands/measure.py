@@ -9,15 +9,14 @@ from __future__ import annotations
 
 import json
 import sys
-from functools import partial
 from pathlib import Path
 
 from labtool.cli.columns import add_column_options, column_picks
-from labtool.errors import LabtoolError, MeasurementError, UsageError
-from labtool.execute import add_scheduler_option, parse_scheduler, run_batch
-from labtool.ingest import IngestOptions, read_path
+from labtool.errors import LabtoolError, UsageError
+from labtool.execute import add_scheduler_option, parse_scheduler
+from labtool.ingest import IngestOptions
 from labtool.measure import Limits
-from labtool.measure.batch import measure_campaign, result_rows
+from labtool.measure.batch import measure_campaign, measure_files
 from labtool.stats.sources import text_table
 from labtool.store import Campaign
 from labtool.store.campaign import CATALOG_NAME
@@ -69,29 +68,6 @@ def is_campaign(path: str) -> bool:
     return (Path(path) / CATALOG_NAME).is_file()
 
 
-def measure_file(options, limits: Limits, path: str) -> list[tuple[str, dict | str]]:
-    """Worker: read one file and measure each of its captures: ("ok", row) or ("error", message)."""
-    out = []
-    for capture in read_path(path, options):
-        try:
-            out.extend(("ok", {**row, "file": path}) for row in result_rows(capture, limits))
-        except MeasurementError as exc:
-            out.append(("error", str(exc)))
-    return out
-
-
-def _file_rows(paths: list[str], args, limits: Limits, scheduler):
-    """Yield ("ok", row) / ("error", message) for every capture of every file, in input order."""
-    if not paths:
-        return
-    work = partial(measure_file, IngestOptions(**column_picks(args)), limits)
-    for outcome in run_batch(work, paths, scheduler, what="measure", unit="file"):
-        if outcome.ok:
-            yield from outcome.value
-        else:
-            yield "error", outcome.error
-
-
 def _campaign_rows(path: str, limits: Limits, scheduler):
     with Campaign.open(path) as campaign:
         report = measure_campaign(campaign, limits, scheduler)
@@ -108,7 +84,7 @@ def run(args) -> int:
     scheduler = parse_scheduler(args.scheduler)
     files = [p for p in args.paths if not is_campaign(p)]
     sources = [_campaign_rows(p, limits, scheduler) for p in args.paths if is_campaign(p)]
-    sources.append(_file_rows(files, args, limits, scheduler))
+    sources.append(measure_files(files, IngestOptions(**column_picks(args)), limits, scheduler))
     failures = 0
     table = []
     for source in sources:

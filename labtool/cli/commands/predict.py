@@ -11,13 +11,12 @@ Behavioural model, not transistor-level sign-off.
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
 import numpy as np
 
 from labtool.errors import UsageError
-from labtool.execute import add_scheduler_option, parse_scheduler
+from labtool.execute import add_scheduler_option
 from labtool.units import format_si, parse_quantity
 
 
@@ -48,21 +47,6 @@ def register(sub) -> None:
 RARE_SAMPLES = 4000
 
 
-def _plain(value):
-    """JSON-safe: numpy scalars to Python, tuples to lists, non-finite floats to null."""
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, dict):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, (np.bool_, bool)):
-        return bool(value)
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(value) else None
-    return value
-
-
 def write_waveform(capture, path: str) -> None:
     """The capture as a CSV with units in the header, readable by labtool's CSV importer."""
     cols = [("time", "s", capture.times())] + [(c.name, c.unit, c.values) for c in capture.channels]
@@ -77,61 +61,28 @@ def write_waveform(capture, path: str) -> None:
 
 
 def run(args) -> int:
-    from labtool.measure import measure_capture
-    from labtool.model import DISCLAIMER, dc_analysis, load_design, monte_carlo, simulate
+    from labtool._api.results import predict
+    from labtool.model import load_design
     from labtool.model.design import parse_assignments
-    from labtool.model.montecarlo import summarise
-    from labtool.stats.intervals import exact_interval
 
     design = load_design(args.design, parse_assignments(args.assignments))
-    temp = design.temperature_c if args.temp is None else parse_quantity(args.temp, "C", what="--temp")
-    ramp = design.ramp_s if args.ramp is None else parse_quantity(args.ramp, "s", what="--ramp")
-    if not ramp > 0:
+    temp = None if args.temp is None else parse_quantity(args.temp, "C", what="--temp")
+    ramp = None if args.ramp is None else parse_quantity(args.ramp, "s", what="--ramp")
+    if ramp is not None and not ramp > 0:
         raise UsageError(f"--ramp {args.ramp}: must be > 0")
     if args.montecarlo is not None and args.montecarlo < (2 if args.rare else 1):
         raise UsageError(f"--montecarlo {args.montecarlo}: must be ≥ {2 if args.rare else 1}")
-    params = design.resolved(temp)
-    params["ramp_s"] = ramp
-    dc = dc_analysis(design, temp)
-    capture = simulate(design, ramp_s=ramp, temperature_c=temp)
-    nominal = measure_capture(capture).to_json_dict()
-    transient = {k: nominal[k] for k in ("verdict", "t_supply_s", "delay_s", "rise_s", "settle_s",
-                                         "overshoot_pct", "vout_final_v")}
+    samples = (args.montecarlo or RARE_SAMPLES) if args.rare else args.montecarlo
+    prediction = predict(design, temperature_c=temp, ramp_s=ramp, samples=samples, rare=args.rare, seed=args.seed,
+                         scheduler=args.scheduler)
     if args.waveform:
-        write_waveform(capture, args.waveform)
-    out = {"model": DISCLAIMER, "design": design.name, "source": str(Path(args.design)),
-           "params": params, "dc": dc.to_json_dict(), "transient": transient}
-    scheduler = parse_scheduler(args.scheduler) if args.scheduler else None
-    if args.rare:
-        out["montecarlo"] = rare_json(design, ramp, temp, args.montecarlo or RARE_SAMPLES, args.seed, scheduler)
-    elif args.montecarlo:
-        mc = monte_carlo(design, conditions=[(ramp, temp)], n=args.montecarlo, seed=args.seed, scheduler=scheduler)
-        summary = summarise(mc.samples, mc.failures)
-        measured = summary["n"]
-        out["montecarlo"] = {"seed": args.seed, "ramp_s": ramp, "temperature_c": temp, "method": "plain Monte Carlo",
-                             **summary, "p_stuck_ci95": list(exact_interval(summary["n_stuck"], measured))
-                             if measured else None, "failed": _failed(mc.failures)}
-    out = _plain(out)
+        write_waveform(prediction.capture, args.waveform)
+    out = {**prediction.to_dict(), "source": str(Path(args.design))}
     if args.json:
         print(json.dumps(out))
     else:
         print(summary_text(out, args.waveform))
     return 0
-
-
-def _failed(failures) -> list[dict]:
-    """The first samples that could not be simulated, with their parameters and the error."""
-    return failures.head(20).to_dict(orient="records")
-
-
-def rare_json(design, ramp: float, temp: float, n: int, seed: int, scheduler) -> dict:
-    """The ``montecarlo`` object of ``--rare``: the importance-sampling result; the plain Monte Carlo's
-    delay figures do not apply to importance samples (null)."""
-    from labtool.model.rare import stuck_probability
-
-    r = stuck_probability(design, ramp_s=ramp, temperature_c=temp, n=n, seed=seed, scheduler=scheduler)
-    return {**r.to_json_dict(), "cause": r.cause(), **dict.fromkeys(
-        ("delay_median_s", "delay_p05_s", "delay_p95_s", "delay_mean_s", "delay_std_s", "verdicts"))}
 
 
 def summary_text(out: dict, waveform: str | None) -> str:

@@ -6,7 +6,7 @@ from __future__ import annotations
 import json
 import sys
 
-from labtool.errors import LabtoolError, UsageError
+from labtool.errors import UsageError
 from labtool.stats.sources import text_table
 
 
@@ -47,58 +47,26 @@ def _parts(args, table) -> list[str]:
     return list(dict.fromkeys(named))
 
 
-def _model(args, rows, limits: dict):
-    """The model's Monte Carlo at every set-up of the parts (once for all of them)."""
-    from labtool.execute import parse_scheduler
-    from labtool.measure import Limits
-    from labtool.model import load_design
-    from labtool.stats.triage import model_evidence, model_setup, record_windows
-    from labtool.stats.triage.model_backing import DEFAULT_SAMPLES
-
-    n = DEFAULT_SAMPLES if args.model_samples is None else args.model_samples
-    if n < 1:
-        raise UsageError(f"--model-samples {n}: must be at least 1")
-    design = load_design(args.model)
-    setups = [model_setup(r) for r in rows.to_dict("records")]
-    return design, model_evidence(design, setups, windows=record_windows(rows),
-                                  limits=Limits(**limits) if limits else None, n=n, seed=args.seed,
-                                  scheduler=parse_scheduler(args.scheduler))
-
-
 def run(args) -> int:
-    import pandas as pd
-
-    from labtool.stats.triage import load_resolution, triage
-    from labtool.stats.triage.parts import current_versions, select_part
+    from labtool._api.results import triage_parts
     from labtool.store import Campaign
 
+    if args.model_samples is not None and args.model_samples < 1:
+        raise UsageError(f"--model-samples {args.model_samples}: must be at least 1")
     with Campaign.open(args.campaign) as camp:
         table = camp.measurements()
         if table.empty:
             raise UsageError(f"{args.campaign}: no measurements yet; run `labtool measure {args.campaign}` first")
-        limits_key = str(table["limits_key"].iloc[0]) if "limits_key" in table.columns else None
-        limits = camp.limits(limits_key) if limits_key else {}
         parts = _parts(args, table)
-        current = current_versions(table)
-        mine, failed = {}, []
-        for part in parts:
-            try:
-                mine[part] = current[select_part(current, part)[2].to_numpy()]
-            except LabtoolError as exc:
-                if len(parts) == 1:
-                    raise
-                failed.append(f"labtool triage: {exc}")
-        rows = pd.concat(list(mine.values())) if mine else current.iloc[:0]
-        resolution = load_resolution(str(camp.root), camp.records(list(rows["capture_id"])))
-    design, model = _model(args, rows, limits) if args.model else (None, None)
-    for i, part in enumerate(mine):
-        report = triage(table, part, design=design, resolution=resolution, model=model)
+    reports, failed = triage_parts(args.campaign, parts, model=args.model, model_samples=args.model_samples,
+                                   seed=args.seed, scheduler=args.scheduler or "local")  # every core by default
+    for i, report in enumerate(reports.values()):
         if args.json:
             print(json.dumps(report.to_json_dict(), allow_nan=False))
         else:
             print(("\n" if i else "") + render(report))
     for line in failed:
-        print(line, file=sys.stderr)
+        print(f"labtool triage: {line}", file=sys.stderr)
     return 1 if failed else 0
 
 

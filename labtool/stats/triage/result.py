@@ -78,6 +78,14 @@ class TriageReport:
                 "next_experiment": self.next_experiment.to_json_dict(), "notes": list(self.notes),
                 "model": _plain(self.model) if self.model is not None else None}
 
+    def to_dict(self) -> dict:
+        """The ``labtool triage --json`` object (as :meth:`to_json_dict`)."""
+        return self.to_json_dict()
+
+    def to_frame(self) -> pd.DataFrame:
+        """The ranked hypotheses, one row each (as :meth:`table`)."""
+        return self.table()
+
     def table(self) -> pd.DataFrame:
         """One row per hypothesis, ranked: what the report's sheets show."""
         return pd.DataFrame([{"rank": i + 1, "name": h.name, "posterior": h.posterior,
