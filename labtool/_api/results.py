@@ -41,8 +41,10 @@ class _Opened:
     def __init__(self, source: Source):
         self.store: Store | None = None
         self._own = False
+        from labtool.stats.table import startup_rows
+
         if isinstance(source, pd.DataFrame):
-            self.table, self.limits = source, Limits()
+            self.table, self.limits = startup_rows(source), Limits()
             return
         if isinstance(source, Campaign):
             self.store = store_of(source)
@@ -54,10 +56,14 @@ class _Opened:
             raise UsageError(f"expected a Campaign, a campaign directory or a measurement table, not "
                              f"{type(source).__name__}")
         try:
-            self.table = self.store.measurements()
-            if self.table.empty:
-                where = os.fspath(source) if self._own else str(self.store.root)
+            measured = self.store.measurements()
+            where = os.fspath(source) if self._own else str(self.store.root)
+            if measured.empty:
                 raise UsageError(f"{where}: no measurements yet; run `labtool measure {where}` first")
+            # Statistics count startups; supply-dip and power-down rows are other records.
+            self.table = startup_rows(measured)
+            if self.table.empty:
+                raise UsageError(f"{where}: no startup measurements (only supply-dip or power-down captures)")
             self.limits = measured_limits(self.store, self.table)
         except BaseException:
             self.close()
